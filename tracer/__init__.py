@@ -1,0 +1,1 @@
+"""tracer package."""
