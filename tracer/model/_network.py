@@ -1,0 +1,205 @@
+r"""Diode network parametrised by the junction voltage, shared by both diode models.
+
+With the junction (diode) voltage :math:`V_d = V + I R_s` as the free variable, every
+quantity of the equivalent circuit is explicit:
+
+.. math::
+
+    I(V_d) = I_{ph} - I_{01}\,(e^{V_d/a_1} - 1) - I_{02}\,(e^{V_d/a_2} - 1) - G_{sh} V_d,
+    \qquad V(V_d) = V_d - I(V_d)\,R_s,
+
+with :math:`a_k = n_k N_s V_t` and :math:`G_{sh} = 1/R_{sh}`. The single-diode model is
+the case :math:`I_{02} = 0`. :math:`I(V_d)` is concave and decreasing and
+:math:`V(V_d)` is increasing, so every problem below has a monotone residual and a
+bracket; it is solved with :func:`tracer.model._newton.bracketed_newton`.
+
+All functions here take *flat* float arrays of equal length (already validated and
+broadcast) and return flat arrays.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from tracer.model._newton import bracketed_newton
+
+#: Absolute tolerance on the junction voltage, as a fraction of the smallest modified
+#: ideality factor a = n*Ns*Vt: a step of 1e-13*a changes exp(Vd/a) by 1e-13 relative.
+ATOL_PER_A = 1e-13
+
+
+@dataclass(frozen=True)
+class FlatNetwork:
+    """Flat, equal-length parameter arrays of a diode network (internal)."""
+
+    photocurrent_a: np.ndarray
+    saturation_current_1_a: np.ndarray
+    n_ns_vt_1_v: np.ndarray
+    saturation_current_2_a: np.ndarray
+    n_ns_vt_2_v: np.ndarray
+    series_resistance_ohm: np.ndarray
+    shunt_conductance_s: np.ndarray
+
+    def take(self, index):
+        """Sub-network of the elements ``index``."""
+        return FlatNetwork(*(getattr(self, f)[index] for f in self.__dataclass_fields__))
+
+    @property
+    def size(self) -> int:
+        return self.photocurrent_a.size
+
+    def voltage_scale_v(self):
+        """Absolute tolerance scale for junction voltages [V]."""
+        a2 = np.where(self.saturation_current_2_a > 0, self.n_ns_vt_2_v, np.inf)
+        return ATOL_PER_A * np.minimum(self.n_ns_vt_1_v, a2)
+
+
+def make_flat(shape, photocurrent_a, saturation_current_1_a, n_ns_vt_1_v,
+              saturation_current_2_a, n_ns_vt_2_v, series_resistance_ohm,
+              shunt_conductance_s) -> FlatNetwork:
+    """Broadcast parameters to ``shape`` and flatten them."""
+    arrays = [np.broadcast_to(np.asarray(p, dtype=float), shape).ravel()
+              for p in (photocurrent_a, saturation_current_1_a, n_ns_vt_1_v,
+                        saturation_current_2_a, n_ns_vt_2_v, series_resistance_ohm,
+                        shunt_conductance_s)]
+    return FlatNetwork(*arrays)
+
+
+def junction_current(vd, net: FlatNetwork):
+    """Terminal current :math:`I(V_d)` [A] (generator convention) at junction voltage [V]."""
+    i02 = net.saturation_current_2_a
+    with np.errstate(over="ignore", invalid="ignore"):
+        diode_2 = np.where(i02 > 0, i02 * np.expm1(vd / net.n_ns_vt_2_v), 0.0)
+        return (net.photocurrent_a - net.saturation_current_1_a * np.expm1(vd / net.n_ns_vt_1_v)
+                - diode_2 - vd * net.shunt_conductance_s)
+
+
+def junction_slopes(vd, net: FlatNetwork):
+    r"""Conductance :math:`D = -dI/dV_d` [S] and its derivative :math:`dD/dV_d` [S/V]."""
+    i02 = net.saturation_current_2_a
+    a1, a2 = net.n_ns_vt_1_v, net.n_ns_vt_2_v
+    with np.errstate(over="ignore", invalid="ignore"):
+        d1 = net.saturation_current_1_a / a1 * np.exp(vd / a1)
+        d2 = np.where(i02 > 0, i02 / a2 * np.exp(vd / a2), 0.0)
+    return d1 + d2 + net.shunt_conductance_s, d1 / a1 + d2 / a2
+
+
+def _diode_log_bound(excess_a, net: FlatNetwork):
+    """Smallest :math:`a_k \\log(1 + X / I_{0k})` over the diodes present [V].
+
+    At a junction voltage above this bound the diode currents alone exceed ``excess_a``.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        b1 = net.n_ns_vt_1_v * np.log1p(excess_a / net.saturation_current_1_a)
+        b2 = np.where(net.saturation_current_2_a > 0,
+                      net.n_ns_vt_2_v * np.log1p(excess_a / net.saturation_current_2_a),
+                      np.inf)
+    return np.minimum(b1, b2)
+
+
+def open_circuit_voltage(net: FlatNetwork):
+    """Voc [V]: the junction voltage where :math:`I(V_d) = 0` (there :math:`V = V_d`)."""
+    upper = _diode_log_bound(net.photocurrent_a, net)
+    lower = np.zeros_like(upper)
+
+    def residual(x, idx):  # -I(Vd): increasing and convex
+        sub = net.take(idx)
+        return -junction_current(x, sub), junction_slopes(x, sub)[0]
+
+    return bracketed_newton(residual, lower, upper, upper, atol=net.voltage_scale_v())
+
+
+def current_at_voltage(voltage_v, net: FlatNetwork, voc_v):
+    """Terminal current [A] at terminal voltage ``voltage_v`` [V] (flat arrays)."""
+    v = voltage_v
+    rs = net.series_resistance_ohm
+    lower = np.minimum(v, voc_v)
+    upper = np.maximum(v, voc_v)
+    # Above Voc the current is negative, so I01*(exp(Vd/a1)-1) <= Iph - I <= Iph + (V-Voc)/Rs
+    with np.errstate(divide="ignore", invalid="ignore"):
+        excess = net.photocurrent_a + (v - voc_v) / rs
+    forward = (v > voc_v) & (rs > 0)
+    upper = np.where(forward, np.minimum(upper, _diode_log_bound(excess, net)), upper)
+    ideal = rs == 0  # Vd = V exactly
+    lower = np.where(ideal, v, lower)
+    upper = np.where(ideal, v, upper)
+
+    def residual(x, idx):  # Vd - Rs*I(Vd) - V: increasing and convex
+        sub = net.take(idx)
+        r = sub.series_resistance_ohm
+        return (x - r * junction_current(x, sub) - v[idx],
+                1.0 + r * junction_slopes(x, sub)[0])
+
+    vd = bracketed_newton(residual, lower, upper, upper, atol=net.voltage_scale_v())
+    return junction_current(vd, net)
+
+
+def voltage_at_current(current_a, net: FlatNetwork):
+    """Terminal voltage [V] at terminal current ``current_a`` [A] (flat arrays).
+
+    Where the shunt is ideal (:math:`G_{sh} = 0`) and the current reaches
+    :math:`I_{ph} + I_{01} + I_{02}` or more, no finite voltage exists and ``-inf`` is
+    returned (the limit of the model).
+    """
+    i = current_a
+    g = net.shunt_conductance_s
+    i01, i02 = net.saturation_current_1_a, net.saturation_current_2_a
+    excess = net.photocurrent_a - i
+    a_max = np.where(i02 > 0, np.maximum(net.n_ns_vt_1_v, net.n_ns_vt_2_v), net.n_ns_vt_1_v)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        # reverse-current side (I > Iph): Vd < 0; the shunt alone or the saturated diodes
+        # carry the excess at these junction voltages
+        by_shunt = np.where(g > 0, excess / g, -np.inf)
+        by_diodes = np.where(-excess < i01 + i02,
+                             a_max * np.log1p(excess / (i01 + i02)), -np.inf)
+        forward_bound = _diode_log_bound(excess, net)
+    reverse = excess < 0
+    lower = np.where(reverse, np.maximum(by_shunt, by_diodes), 0.0)
+    upper = np.where(reverse, 0.0, forward_bound)
+    unreachable = ~(lower > -np.inf)
+    lower = np.where(unreachable, 0.0, lower)
+    upper = np.where(unreachable, 0.0, upper)
+
+    def residual(x, idx):  # I - I(Vd): increasing and convex
+        sub = net.take(idx)
+        return i[idx] - junction_current(x, sub), junction_slopes(x, sub)[0]
+
+    vd = bracketed_newton(residual, lower, upper, upper, atol=net.voltage_scale_v())
+    vd = np.where(unreachable & ~np.isnan(i), -np.inf, vd)
+    with np.errstate(invalid="ignore"):
+        return vd - i * net.series_resistance_ohm
+
+
+def maximum_power_point(net: FlatNetwork, voc_v):
+    r"""Maximum power point on :math:`0 \le V \le V_{oc}`.
+
+    Solves :math:`dP/dV_d = I (1 + 2 R_s D) - V_d D = 0` (with :math:`P = V I`,
+    :math:`D = -dI/dV_d`) for the junction voltage on the bracket :math:`[0, V_{oc}]`;
+    :math:`P(V)` is strictly concave there, so the root is unique.
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        ``(vmp_v, imp_a, pmax_w)``.
+    """
+    rs = net.series_resistance_ohm
+    a1 = net.n_ns_vt_1_v
+    lower = np.zeros_like(voc_v)
+    upper = np.asarray(voc_v, dtype=float)
+    # start: ideal-diode estimate Vmp ~ Voc - a*ln(1 + Voc/a) (common practice)
+    start = np.clip(upper - a1 * np.log1p(upper / a1), lower, upper)
+
+    def residual(x, idx):  # -dP/dVd: increasing through the root
+        sub = net.take(idx)
+        r = sub.series_resistance_ohm
+        cur = junction_current(x, sub)
+        d, dd = junction_slopes(x, sub)
+        f = x * d - cur * (1.0 + 2.0 * r * d)
+        df = 2.0 * d * (1.0 + r * d) + dd * (x - 2.0 * cur * r)
+        return f, df
+
+    vd = bracketed_newton(residual, lower, upper, start, atol=net.voltage_scale_v())
+    imp = junction_current(vd, net)
+    vmp = vd - imp * rs
+    return vmp, imp, vmp * imp
