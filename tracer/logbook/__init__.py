@@ -1,0 +1,31 @@
+"""The results store: every run, sweep, raw point and analysis, durable first.
+
+- :class:`Logbook` — open (create, migrate, recover interrupted runs) and read a logbook.
+- :class:`LogbookWriter` — the engine's critical subscriber: each event committed before
+  the call returns.
+- :func:`export_run`, :func:`read_sweep_csv`, :func:`read_run_json` — exports that read
+  back bit for bit.
+- :func:`default_logbook_path` — ``$TRACER_LOGBOOK``, else
+  ``$XDG_DATA_HOME/tracer/logbook.sqlite``, else ``~/.local/share/tracer/logbook.sqlite``.
+
+Stdlib only (plus ``tracer.events`` and ``tracer.conventions``).
+"""
+from tracer.logbook.export import (
+    CSV_COLUMNS, ExportError, ExportResult, SweepCsv, export_run, read_run_json, read_sweep_csv,
+    run_document, safe_name,
+)
+from tracer.logbook.paths import LOGBOOK_ENV, default_logbook_path
+from tracer.logbook.schema import LATEST_VERSION as SCHEMA_VERSION
+from tracer.logbook.store import (
+    AmbiguousRun, InstrumentRecord, Logbook, LogbookError, RecoveryReport, RunNotFound,
+    RunSummary, StoredAnalysis, StoredInterlock, StoredRun, StoredSweep, migrate, open_logbook,
+)
+from tracer.logbook.writer import LogbookWriter
+
+__all__ = [
+    "AmbiguousRun", "CSV_COLUMNS", "ExportError", "ExportResult", "InstrumentRecord",
+    "LOGBOOK_ENV", "Logbook", "LogbookError", "LogbookWriter", "RecoveryReport", "RunNotFound",
+    "RunSummary", "SCHEMA_VERSION", "StoredAnalysis", "StoredInterlock", "StoredRun",
+    "StoredSweep", "SweepCsv", "default_logbook_path", "export_run", "migrate", "open_logbook",
+    "read_run_json", "read_sweep_csv", "run_document", "safe_name",
+]
