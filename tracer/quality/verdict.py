@@ -25,6 +25,7 @@ code                      fails when                                            
 ``few-points-mpp``        < 5 points in 0.75-1.15 x (Vmp, Imp)                        [8]
 ``isc-not-reached``       no point at V <= 0 (Isc extrapolated)                       [8]
 ``voc-not-reached``       no point at I <= 0 (Voc extrapolated)                       [8]
+``no-power-quadrant``     a light curve from which no Isc/Voc/Pmax can be read        [8]
 ``analysis-failed``       the fit or the figures could not be computed at all         —
 ========================  ==========================================================  =========
 
@@ -239,11 +240,17 @@ def assess_sweep(evidence: SweepEvidence,
         out.check("analysis-failed", True, None, None, "", str(message), "—")
 
     figures = evidence.figures
-    if figures is None and not evidence.dark and v.size >= 5:
-        try:
-            figures = data_figures(v, i)
-        except (ValueError, np.linalg.LinAlgError) as exc:
-            out.skip("figures", f"figures could not be read from the points: {exc}")
+    if figures is None and not evidence.dark:
+        why = f"only {v.size} usable point(s)"
+        if v.size >= 5:
+            try:
+                figures = data_figures(v, i)
+            except (ValueError, np.linalg.LinAlgError) as exc:
+                why = str(exc)
+        if figures is None:
+            out.check("no-power-quadrant", True, None, None, "",
+                      f"no Isc, Voc or Pmax can be read from the points ({why}): check the "
+                      "light, the wiring polarity and the sweep range", SRC_POINTS)
     isc = _num(getattr(figures, "isc_a", None)) if figures is not None else None
     voc = _num(getattr(figures, "voc_v", None)) if figures is not None else None
 
