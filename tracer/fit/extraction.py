@@ -1,0 +1,500 @@
+"""Global extraction of single- and double-diode parameters from one I-V curve.
+
+Method
+------
+1. Reduced search. For trial values of the nonlinear parameters (ideality factors and
+   series resistance) the remaining ones (Iph, I0s, 1/Rsh) enter the diode equation,
+   evaluated at the measured current, linearly; a nonnegative linear least-squares
+   solve gives them for a whole grid of trials at once (:mod:`tracer.fit._grid`).
+2. Polish. The best few grid minima start a bounded trust-region least-squares
+   (``scipy.optimize.least_squares``) over *all* parameters on the true current
+   residual: measured current minus the model current solved exactly (by
+   :mod:`tracer.model`) at each measured voltage. Saturation currents are fitted as
+   ln I0, the shunt as a conductance G = 1/Rsh >= 0. Dark curves (Iph = 0) are fitted
+   on ln|I| instead, so that every decade of current counts.
+3. Uncertainty. Covariance s^2 (J^T J)^-1 at the optimum (J the Jacobian of the
+   residuals, s^2 their variance), propagated to the reported parameters.
+4. ``model="auto"`` fits both models and keeps the one with the lower Bayesian
+   information criterion, BIC = N ln(SSR/N) + k ln N (Schwarz 1978).
+"""
+from __future__ import annotations
+
+import dataclasses
+import math
+import time
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.optimize import least_squares
+
+from tracer.fit import _grid
+from tracer.fit._checks import as_curve
+from tracer.fit._lm import bounded_lm
+from tracer.fit._layout import Layout, current_jacobian, equation_terms, model_current
+from tracer.fit.errors import FitError
+from tracer.fit.result import DOUBLE_KEYS, SINGLE_KEYS, FitResult
+from tracer.model import thermal_voltage
+
+MODELS = ("single", "double", "auto")
+LOSSES = ("linear", "soft_l1")
+#: Bounds of the ideality factor during the polish (wider than the grid).
+IDEALITY_BOUNDS = (0.2, 20.0)
+#: ln I0 may go this far below ln(current scale): I0 ~ 1e-39 * Isc is "no diode".
+LOG_I0_SPAN = 90.0
+#: At most this many pre-polished starts get the exact polish (best first)...
+POLISH_COUNT = {1: 2, 2: 2}
+#: ... a runner-up only if its exact cost is within this factor of the best start's.
+RUNNER_UP_COST_RATIO = 2.0
+#: Rounds of the solver-free pre-polish (weights refreshed each round).
+PREPOLISH_ROUNDS = 0
+_PRE_TOL = 1e-6
+_PRE_MAX_ITER = 100
+_TOL = 1e-14
+_MAX_NFEV = {1: 200, 2: 80}
+#: Relative size of a singular value of the scaled Jacobian treated as zero.
+_SINGULAR_RTOL = 1e-11
+
+
+@dataclass
+class _Problem:
+    voltage_v: np.ndarray          # all points
+    current_a: np.ndarray
+    fit_mask: np.ndarray           # points entering the objective
+    ns_vt_v: float                 # Ns * Vt
+    dark: bool
+    loss: str
+    current_scale_a: float
+    voltage_scale_v: float
+    rs_max_ohm: float
+
+    @property
+    def v_fit(self):
+        return self.voltage_v[self.fit_mask]
+
+    @property
+    def i_fit(self):
+        return self.current_a[self.fit_mask]
+
+
+@dataclass
+class _Fit:
+    layout: Layout
+    theta: np.ndarray
+    residual: np.ndarray           # objective residual (current or ln current), fitted points
+    ssr: float
+    covariance: np.ndarray         # of theta
+
+
+def _parameter_count(n_diodes: int, dark: bool) -> int:
+    return Layout(n_diodes, dark).size
+
+
+def _series_resistance_ceiling(v: np.ndarray, i: np.ndarray) -> float:
+    """Upper end of the Rs grid [ohm]: -dV/dI among the lowest-current points.
+
+    At high forward bias (near and past Voc under light) -dV/dI = Rs + 1/(dD/dVd), so the
+    slope there bounds Rs; a 50 % margin covers noise in the slope.
+    """
+    n = max(5, v.size // 10)
+    idx = np.argsort(i, kind="stable")[:n]
+    vi, ii = v[idx], i[idx]
+    r = np.nan
+    if np.ptp(ii) > 0:
+        slope = np.polyfit(ii, vi, 1)[0]
+        r = -slope
+    if not (math.isfinite(r) and r > 0):
+        di = np.ptp(i)
+        r = np.ptp(v) / di if di > 0 else 1.0
+    return 1.5 * r
+
+
+def _prepare(v, i, *, temperature_k, cells_in_series, dark, loss) -> _Problem:
+    vt = thermal_voltage(temperature_k)
+    ns_vt = cells_in_series * vt
+    if dark:
+        # generator convention: forward bias (V > 0) drives a negative current
+        fit_mask = (v != 0.0) & (i != 0.0) & (np.sign(i) == -np.sign(v))
+        forward = v > 0
+        if forward.any() and np.mean(i[forward] > 0) > 0.5:
+            raise FitError(
+                "dark curve: the current is positive under forward bias; pass it in the "
+                "generator convention (negative current for V > 0)"
+            )
+    else:
+        fit_mask = np.ones(v.size, dtype=bool)
+    current_scale = float(np.max(np.abs(i)))
+    if current_scale <= 0.0:
+        raise FitError("all currents are zero; nothing to fit")
+    return _Problem(
+        voltage_v=v, current_a=i, fit_mask=fit_mask, ns_vt_v=ns_vt, dark=dark, loss=loss,
+        current_scale_a=current_scale, voltage_scale_v=float(np.max(np.abs(v))),
+        rs_max_ohm=_series_resistance_ceiling(v[fit_mask], i[fit_mask]),
+    )
+
+
+# --------------------------------------------------------------------------- objective
+class _Objective:
+    """Residuals and Jacobian for least_squares, sharing one exact solve per theta."""
+
+    def __init__(self, problem: _Problem, layout: Layout):
+        self.problem = problem
+        self.layout = layout
+        self.v = problem.v_fit
+        self.i = problem.i_fit
+        if problem.dark:
+            self.log_abs_i = np.log(np.abs(self.i))
+        self._key = None
+        self._model = None
+
+    def model(self, theta):
+        key = theta.tobytes()
+        if key != self._key:
+            self._model = model_current(self.layout, theta, self.v)
+            self._key = key
+        return self._model
+
+    def residual(self, theta):
+        m = self.model(theta)
+        if self.problem.dark:
+            return np.log(np.maximum(np.abs(m), 1e-300)) - self.log_abs_i
+        return m - self.i
+
+    def jacobian(self, theta):
+        m = self.model(theta)
+        jac = current_jacobian(self.layout, theta, self.v, m)
+        if self.problem.dark:
+            jac = jac / np.where(m == 0.0, 1e-300, m)[:, None]
+        return jac
+
+
+def _bounds(problem: _Problem, layout: Layout):
+    lb = np.zeros(layout.size)
+    ub = np.full(layout.size, np.inf)
+    log_scale = math.log(problem.current_scale_a)
+    for k in layout.log_i0_indices():
+        lb[k], ub[k] = log_scale - LOG_I0_SPAN, log_scale + 5.0
+    for k in layout.a_indices():
+        lb[k], ub[k] = IDEALITY_BOUNDS[0] * problem.ns_vt_v, IDEALITY_BOUNDS[1] * problem.ns_vt_v
+    return lb, ub
+
+
+def _scales(problem: _Problem, layout: Layout, theta0) -> np.ndarray:
+    """Characteristic size of each parameter: a change that moves the current by about
+    the current scale (used as least_squares' x_scale)."""
+    s = np.ones(layout.size)
+    if not layout.dark:
+        s[0] = problem.current_scale_a
+    for k in layout.a_indices():
+        s[k] = max(theta0[k], problem.ns_vt_v) * 0.1
+    s[layout.rs_index] = problem.voltage_scale_v / problem.current_scale_a
+    s[layout.g_index] = problem.current_scale_a / problem.voltage_scale_v
+    return s
+
+
+def _theta_from_solution(problem, layout, sol: _grid.LinearSolution, lb, ub):
+    log_i0 = [math.log(x) if x > 0 else -np.inf for x in sol.saturation_currents_a]
+    theta = layout.pack(sol.photocurrent_a, log_i0, sol.n_ns_vt_v,
+                        sol.series_resistance_ohm, sol.shunt_conductance_s)
+    return np.clip(theta, lb, ub)
+
+
+def _robust_scale(r: np.ndarray) -> float:
+    """Normal-consistent median absolute deviation (1.4826 MAD)."""
+    mad = float(np.median(np.abs(r - np.median(r))))
+    return max(1.4826 * mad, 1e-300)
+
+
+def _polish(objective: _Objective, theta0, lb, ub, x_scale, loss, f_scale, max_nfev):
+    return least_squares(
+        objective.residual, theta0, jac=objective.jacobian, bounds=(lb, ub), method="trf",
+        x_scale=x_scale, loss=loss, f_scale=f_scale, ftol=_TOL, xtol=_TOL, gtol=_TOL,
+        max_nfev=max_nfev,
+    )
+
+
+def _covariance(jac: np.ndarray, residual: np.ndarray, n_params: int, weights=None):
+    """s^2 (J^T W J)^-1 via an SVD of the column-scaled Jacobian; inf variance along
+    directions the data do not determine."""
+    n = residual.size
+    w = np.ones(n) if weights is None else weights
+    jw = jac * np.sqrt(w)[:, None]
+    dof = max(n - n_params, 1)
+    s2 = float(np.sum(w * residual**2)) / dof
+    col = np.linalg.norm(jw, axis=0)
+    col = np.where(col > 0, col, 1.0)
+    js = jw / col
+    _, sv, vt = np.linalg.svd(js, full_matrices=False)
+    small = sv <= _SINGULAR_RTOL * sv[0] if sv.size and sv[0] > 0 else np.ones_like(sv, bool)
+    inv_sv2 = np.where(small, 0.0, 1.0 / np.where(small, 1.0, sv) ** 2)
+    cov_s = (vt.T * inv_sv2) @ vt
+    cov = s2 * cov_s / np.outer(col, col)
+    if small.any():
+        undetermined = np.any(np.abs(vt[small]) > 1e-6, axis=0)
+        cov[undetermined, :] = np.inf
+        cov[:, undetermined] = np.inf
+    return cov
+
+
+def _sort_diodes(layout: Layout, theta, cov):
+    """Label the diodes so that a_1 <= a_2 (the model is symmetric in them)."""
+    if layout.n_diodes != 2:
+        return theta, cov
+    a1, a2 = layout.a_indices()
+    if theta[a1] <= theta[a2]:
+        return theta, cov
+    l1, l2 = layout.log_i0_indices()
+    perm = np.arange(layout.size)
+    perm[[l1, l2]] = [l2, l1]
+    perm[[a1, a2]] = [a2, a1]
+    return theta[perm], cov[np.ix_(perm, perm)]
+
+
+class _EquationObjective:
+    """Solver-free stand-in for the residual: the implicit-equation residual at the
+    measured points, divided by its first-order link to the current residual (weights
+    frozen for one round so that the Jacobian is exact)."""
+
+    def __init__(self, problem: _Problem, layout: Layout, theta):
+        self.layout = layout
+        self.v = problem.v_fit
+        self.i = problem.i_fit
+        _, _, denom = equation_terms(layout, theta, self.v, self.i)
+        base = 1.0 / np.abs(self.i) if problem.dark else 1.0
+        self.w = base / denom
+        self._key = None
+        self._terms = None
+
+    def _get(self, theta):
+        key = theta.tobytes()
+        if key != self._key:
+            self._terms = equation_terms(self.layout, theta, self.v, self.i)
+            self._key = key
+        return self._terms
+
+    def residual(self, theta):
+        return self._get(theta)[0] * self.w
+
+    def jacobian(self, theta):
+        return self._get(theta)[1] * self.w[:, None]
+
+
+def _prepolish(problem: _Problem, layout: Layout, theta0, lb, ub, x_scale):
+    """Bring a grid start close to the optimum with the cheap equation residual."""
+    theta = theta0
+    for _ in range(PREPOLISH_ROUNDS):
+        eq = _EquationObjective(problem, layout, theta)
+        r0 = eq.residual(theta)
+        if not np.all(np.isfinite(r0)):
+            return theta
+        f_scale = _robust_scale(r0) if problem.loss == "soft_l1" else 1.0
+        theta = bounded_lm(lambda t: (eq.residual(t), eq.jacobian(t)), theta, lb, ub,
+                           x_scale, loss=problem.loss, f_scale=f_scale,
+                           max_iter=_PRE_MAX_ITER, ftol=_PRE_TOL, xtol=_PRE_TOL)
+    return theta
+
+
+def _exact_cost(objective: _Objective, theta) -> float:
+    try:
+        r = objective.residual(theta)
+    except (ValueError, RuntimeError):
+        return np.inf
+    return float(r @ r) if np.all(np.isfinite(r)) else np.inf
+
+
+def _fit_model(problem: _Problem, n_diodes: int) -> _Fit:
+    layout = Layout(n_diodes, problem.dark)
+    objective = _Objective(problem, layout)
+    lb, ub = _bounds(problem, layout)
+    v, i = problem.v_fit, problem.i_fit
+    weights = 1.0 / np.abs(i) if problem.dark else np.ones_like(i)
+    solutions = _grid.grid_search(v, i, weights, problem.ns_vt_v, n_diodes=n_diodes,
+                                  dark=problem.dark, rs_max_ohm=problem.rs_max_ohm)
+    starts = []
+    for sol in solutions:
+        theta0 = _theta_from_solution(problem, layout, sol, lb, ub)
+        if PREPOLISH_ROUNDS:
+            theta0 = _prepolish(problem, layout, theta0, lb, ub,
+                                _scales(problem, layout, theta0))
+        starts.append(theta0)
+    costs = np.array([_exact_cost(objective, t) for t in starts])
+    order = [int(k) for k in np.argsort(costs, kind="stable") if math.isfinite(costs[k])]
+    if not order:
+        raise FitError("no starting point gave a finite model current")
+    # polish the best start, and the runners-up whose cost is comparable
+    chosen = [order[0]]
+    for k in order[1:]:
+        if len(chosen) >= POLISH_COUNT[n_diodes]:
+            break
+        distinct = all(np.max(np.abs(starts[k] - starts[j]) / _scales(problem, layout, starts[j]))
+                       > 1e-3 for j in chosen)
+        if distinct and costs[k] <= RUNNER_UP_COST_RATIO * costs[order[0]]:
+            chosen.append(k)
+
+    best = None
+    for k in chosen:
+        theta0 = starts[k]
+        x_scale = _scales(problem, layout, theta0)
+        f_scale = 1.0
+        if problem.loss == "soft_l1":
+            f_scale = _robust_scale(objective.residual(theta0))
+        result = _polish(objective, theta0, lb, ub, x_scale, problem.loss, f_scale,
+                         _MAX_NFEV[n_diodes])
+        if problem.loss == "soft_l1":
+            # second pass with the noise scale of the polished residuals
+            f_scale = _robust_scale(result.fun)
+            result = _polish(objective, result.x, lb, ub, x_scale, problem.loss, f_scale,
+                             _MAX_NFEV[n_diodes])
+        r = objective.residual(result.x)
+        ssr = float(r @ r)
+        key = float(result.cost) if problem.loss == "soft_l1" else ssr
+        if best is None or key < best[0]:
+            best = (key, result.x.copy(), r, ssr, f_scale)
+    _, theta, r, ssr, f_scale = best
+    jac = objective.jacobian(theta)
+    weights = None
+    if problem.loss == "soft_l1":
+        weights = 1.0 / np.sqrt(1.0 + (r / f_scale) ** 2)  # soft_l1: rho'(z), z = (r/C)^2
+    cov = _covariance(jac, r, layout.size, weights)
+    theta, cov = _sort_diodes(layout, theta, cov)
+    return _Fit(layout=layout, theta=theta, residual=r, ssr=ssr, covariance=cov)
+
+
+def _bic(fit: _Fit) -> float:
+    n = fit.residual.size
+    ssr = max(fit.ssr, 1e-300 * n)
+    return n * math.log(ssr / n) + fit.layout.size * math.log(n)
+
+
+def _report(fit: _Fit, problem: _Problem):
+    """Parameters and 1-sigma uncertainties under the public names."""
+    layout = fit.layout
+    th = fit.theta
+    sd = np.sqrt(np.clip(np.diag(fit.covariance), 0.0, np.inf))
+    iph, log_i0, a, rs, g = layout.unpack(th)
+    i0 = [math.exp(x) for x in log_i0]
+    n = [x / problem.ns_vt_v for x in a]
+    rsh = math.inf if g <= 0.0 else 1.0 / g
+    sd_iph = 0.0 if layout.dark else float(sd[0])
+    sd_i0 = [i0[k] * float(sd[j]) for k, j in enumerate(layout.log_i0_indices())]
+    sd_n = [float(sd[j]) / problem.ns_vt_v for j in layout.a_indices()]
+    sd_rs = float(sd[layout.rs_index])
+    sd_g = float(sd[layout.g_index])
+    sd_rsh = math.inf if g <= 0.0 else sd_g / (g * g)
+    if layout.n_diodes == 1:
+        values = (iph, i0[0], n[0], rs, rsh)
+        sigmas = (sd_iph, sd_i0[0], sd_n[0], sd_rs, sd_rsh)
+        keys = SINGLE_KEYS
+    else:
+        values = (iph, i0[0], i0[1], n[0], n[1], rs, rsh)
+        sigmas = (sd_iph, sd_i0[0], sd_i0[1], sd_n[0], sd_n[1], sd_rs, sd_rsh)
+        keys = DOUBLE_KEYS
+    return dict(zip(keys, map(float, values))), dict(zip(keys, map(float, sigmas)))
+
+
+def _check_options(model, loss, temperature_k, cells_in_series):
+    if model not in MODELS:
+        raise FitError(f"model must be one of {', '.join(MODELS)}, got {model!r}")
+    if loss not in LOSSES:
+        raise FitError(f"loss must be one of {', '.join(LOSSES)}, got {loss!r}")
+    try:
+        t = float(temperature_k)
+    except (TypeError, ValueError):
+        raise FitError(f"temperature_k must be a number, got {temperature_k!r}") from None
+    if not (math.isfinite(t) and t > 0):
+        raise FitError(f"temperature_k must be a finite positive temperature [K], got {t!r}")
+    if isinstance(cells_in_series, bool) or int(cells_in_series) != cells_in_series \
+            or cells_in_series < 1:
+        raise FitError(f"cells_in_series must be an integer >= 1, got {cells_in_series!r}")
+    return t, int(cells_in_series)
+
+
+def fit_curve(voltage_v, current_a, *, model: str = "single", temperature_k: float = 298.15,
+              cells_in_series: int = 1, dark: bool = False,
+              loss: str = "linear") -> FitResult:
+    """Fit a single- or double-diode equivalent circuit to one I-V curve.
+
+    Parameters
+    ----------
+    voltage_v, current_a : array_like
+        The measured points [V], [A]; current in the generator convention (positive at
+        short circuit under light; negative under forward bias in the dark).
+    model : {"single", "double", "auto"}
+        Which circuit; ``"auto"`` fits both and keeps the one with the lower BIC.
+    temperature_k : float
+        Cell temperature [K], sets the thermal voltage kT/q.
+    cells_in_series : int
+        Cells in series Ns; the diode exponent uses n*Ns*kT/q.
+    dark : bool
+        Dark curve: Iph is held at 0 and the fit minimises the residual of ln|I| over
+        the points with current of the forward/reverse-bias sign (V = 0 and I = 0
+        points are left out).
+    loss : {"linear", "soft_l1"}
+        ``"soft_l1"`` down-weights outliers (scale: 1.4826 MAD of the residuals).
+
+    Returns
+    -------
+    FitResult
+
+    Raises
+    ------
+    FitError
+        For NaN or infinite values, fewer points (or distinct voltages) than the
+        parameters plus one, a single voltage, or an unknown option.
+    """
+    started = time.perf_counter()
+    temperature_k, cells_in_series = _check_options(model, loss, temperature_k, cells_in_series)
+    dark = bool(dark)
+    p_single = _parameter_count(1, dark)
+    p_double = _parameter_count(2, dark)
+    p_needed = p_double if model == "double" else p_single
+    what = f"a {'dark ' if dark else ''}{'double' if model == 'double' else 'single'}-diode fit"
+    v, i = as_curve(voltage_v, current_a, min_points=p_needed + 1, what=what)
+    problem = _prepare(v, i, temperature_k=temperature_k, cells_in_series=cells_in_series,
+                       dark=dark, loss=loss)
+    n_fit = int(problem.fit_mask.sum())
+    if n_fit < p_needed + 1:
+        raise FitError(
+            f"{what} needs at least {p_needed + 1} points with current of the expected "
+            f"sign, got {n_fit}"
+        )
+
+    fits: dict[str, _Fit] = {}
+    if model in ("single", "auto"):
+        fits["single"] = _fit_model(problem, 1)
+    if model == "double" or (model == "auto" and n_fit >= p_double + 1):
+        fits["double"] = _fit_model(problem, 2)
+    criteria = {name: _bic(f) for name, f in fits.items()}
+
+    if model != "auto":
+        chosen = model
+        reason = f"model {model!r} requested (BIC {criteria[model]:.2f})"
+    elif "double" not in fits:
+        chosen = "single"
+        reason = (f"auto: only {n_fit} points, too few for the double-diode model "
+                  f"({p_double} parameters); single-diode kept (BIC {criteria['single']:.2f})")
+    else:
+        b1, b2 = criteria["single"], criteria["double"]
+        chosen = "double" if b2 < b1 else "single"
+        why = ("the second diode lowers the residual more than its two extra parameters cost"
+               if chosen == "double" else
+               "the second diode does not lower the residual enough to pay for its two "
+               "extra parameters")
+        reason = (f"auto: BIC single {b1:.2f}, double {b2:.2f} "
+                  f"(BIC = N ln(SSR/N) + k ln N, N = {n_fit}); chose {chosen}: {why}")
+
+    fit = fits[chosen]
+    parameters, uncertainty = _report(fit, problem)
+    current_model = model_current(fit.layout, fit.theta, v)
+    residuals = i - current_model
+    rmse = float(np.sqrt(np.mean(residuals**2)))
+    rmse_log = float(np.sqrt(np.mean(fit.residual**2))) if dark else None
+    result = FitResult(
+        model=chosen, parameters=parameters, uncertainty=uncertainty, rmse_a=rmse,
+        residuals_a=residuals, figures=None, selection_reason=reason, elapsed_s=0.0,
+        temperature_k=temperature_k, cells_in_series=cells_in_series, dark=dark, loss=loss,
+        rmse_log=rmse_log, information_criteria=criteria, n_points=int(v.size),
+        n_points_fitted=n_fit,
+    )
+    figures = None if dark else result.to_model().figures()
+    elapsed = time.perf_counter() - started
+    return dataclasses.replace(result, figures=figures, elapsed_s=elapsed)
