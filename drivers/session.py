@@ -23,7 +23,6 @@ through on write, and reports a closed peer as a read timeout) both become
 from __future__ import annotations
 
 import math
-import socket
 import threading
 import time
 from typing import Any, Callable, Sequence
@@ -34,6 +33,7 @@ from pyvisa.errors import VisaIOError
 from . import replies
 from .errors import (InstrumentCommandError, InstrumentError, LinkLostError, OverRangeError,
                      ResponseError)
+from .socket_access import disable_nagle, peer_closed
 
 ERROR_QUERY = "SYST:ERR?"
 _ERROR_QUEUE_READS = 40          # more than any queue depth (16 in the dialect)
@@ -52,32 +52,6 @@ def _resource_manager(resource_manager: Any) -> Any:
     if not hasattr(resource_manager, "open_resource"):
         raise TypeError("resource_manager must be a VISA backend string or have open_resource()")
     return resource_manager
-
-
-def _disable_nagle(resource: Any) -> None:
-    """Best effort: TCP_NODELAY on a pyvisa-py SOCKET resource. pyvisa-py has no public
-    way (its attribute setter raises), so this reaches into its session object; any
-    failure leaves the default, which only costs latency."""
-    try:
-        interface = resource.visalib.sessions[resource.session].interface
-        interface.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
-    except Exception:
-        pass
-
-
-def _peer_closed(resource: Any) -> bool:
-    """Best effort: has the instrument closed a pyvisa-py SOCKET connection? pyvisa-py
-    reports a closed peer only as a read timeout; peeking at the socket tells at once.
-    False whenever it cannot tell (other backends, test transports)."""
-    try:
-        interface = resource.visalib.sessions[resource.session].interface
-        return interface.recv(1, socket.MSG_PEEK | socket.MSG_DONTWAIT) == b""
-    except BlockingIOError:
-        return False           # open, nothing waiting
-    except OSError:
-        return True            # reset or otherwise unusable
-    except Exception:
-        return False
 
 
 class ScpiSession:
@@ -222,7 +196,7 @@ class ScpiSession:
                 timeout=timeout_ms, open_timeout=timeout_ms)
         except Exception as exc:  # pyvisa-py raises a bare Exception when it cannot connect
             raise self._link_lost(None, f"cannot open the resource ({exc})") from exc
-        _disable_nagle(self._resource)
+        disable_nagle(self._resource)
         try:
             # pyvisa-py "connects" even to a closed port: only a reply proves the link.
             self._write("*IDN?")
@@ -258,7 +232,7 @@ class ScpiSession:
         if self._state == "closed":
             raise InstrumentError("session is closed; call reconnect() to reopen",
                                   address=self.address, identity=self.identity, command=command)
-        if self._state == "dirty" and not _peer_closed(self._resource) and self._resync():
+        if self._state == "dirty" and not peer_closed(self._resource) and self._resync():
             return
         try:
             self._connect()
@@ -334,7 +308,7 @@ class ScpiSession:
         try:
             data = self._with_timeout(timeout_s, self._resource.read_raw)
         except VisaIOError as exc:
-            if _peer_closed(self._resource):
+            if peer_closed(self._resource):
                 self._state = "broken"
                 raise self._link_lost(command, "connection closed by the instrument") from exc
             self._state = "dirty"
