@@ -113,3 +113,18 @@ def check_scalar_parameter(name, value) -> float:
         if arr.ndim != 0 or not np.issubdtype(arr.dtype, np.number) or arr.dtype == bool:
             raise ValueError(f"{name} = {value!r} is not a real number")
     return float(check_parameter(name, value))
+
+
+def scaled_expm1(scale, x):
+    """``scale * (exp(x) - 1)`` without overflowing before the product does.
+
+    ``expm1`` alone overflows at ``x > 709.78`` even when ``scale`` is small enough for the
+    product to be representable; above ``x = 1`` the product is formed in log space.
+    ``scale = 0`` gives 0 for every finite ``x``.
+    """
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        big = x > 1.0
+        small_part = scale * np.expm1(np.minimum(x, 1.0))
+        if not np.any(big):
+            return small_part
+        return np.where(big, np.exp(x + np.log(scale)) - scale, small_part)

@@ -22,6 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from tracer.model._checks import scaled_expm1
 from tracer.model._newton import bracketed_newton
 
 #: Absolute tolerance on the junction voltage, as a fraction of the smallest modified
@@ -68,11 +69,10 @@ def make_flat(shape, photocurrent_a, saturation_current_1_a, n_ns_vt_1_v,
 
 def junction_current(vd, net: FlatNetwork):
     """Terminal current :math:`I(V_d)` [A] (generator convention) at junction voltage [V]."""
-    i02 = net.saturation_current_2_a
-    with np.errstate(over="ignore", invalid="ignore"):
-        diode_2 = np.where(i02 > 0, i02 * np.expm1(vd / net.n_ns_vt_2_v), 0.0)
-        return (net.photocurrent_a - net.saturation_current_1_a * np.expm1(vd / net.n_ns_vt_1_v)
-                - diode_2 - vd * net.shunt_conductance_s)
+    return (net.photocurrent_a
+            - scaled_expm1(net.saturation_current_1_a, vd / net.n_ns_vt_1_v)
+            - scaled_expm1(net.saturation_current_2_a, vd / net.n_ns_vt_2_v)
+            - vd * net.shunt_conductance_s)
 
 
 def junction_slopes(vd, net: FlatNetwork):

@@ -19,12 +19,14 @@ Voltage from current (:math:`c = I_{ph} + I_0 - I`):
 
 .. math::
 
-    V = a\left[\ln W(e^{y}) + \ln\frac{a G_{sh}}{I_0}\right] - I R_s,\qquad
+    V = \frac{c}{G_{sh}} - a\,W(e^{y}) - I R_s
+      = a\left[\ln W(e^{y}) + \ln\frac{a G_{sh}}{I_0}\right] - I R_s,\qquad
     y = \ln\frac{I_0}{a G_{sh}} + \frac{c}{a G_{sh}}
 
-which is the usual :math:`V = c R_{sh} - I R_s - a W(\cdot)` rewritten with the identity
-:math:`x - W(e^x) = \ln W(e^x)`, so that the large terms of a high shunt resistance do not
-cancel. :math:`W(e^x)` is evaluated as the Wright omega function :math:`\omega(x)`
+The second, equal form follows from the identity :math:`y - W(e^y) = \ln W(e^y)`; it is
+used where the two large terms of the first (high shunt resistance) would cancel, and
+the first where its terms are small (near zero bias), so the rounding error stays at
+the level of the result's own size. :math:`W(e^x)` is evaluated as the Wright omega function :math:`\omega(x)`
 (``scipy.special.wrightomega``), which never forms :math:`e^x` and so never overflows.
 
 Limits handled analytically: :math:`R_s = 0` gives the explicit ideal-diode current
@@ -45,7 +47,12 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import wrightomega
 
-from tracer.model._checks import check_count, check_parameter, check_scalar_parameter
+from tracer.model._checks import (
+    check_count,
+    check_parameter,
+    check_scalar_parameter,
+    scaled_expm1,
+)
 from tracer.model._network import make_flat
 from tracer.model.figures import CurveFigures, figures_from_parts
 from tracer.model.thermal import thermal_voltage
@@ -77,8 +84,7 @@ def _current_lambert(v, iph, i0, a, rs, g):
 
 def _current_ideal(v, iph, i0, a, g):
     """Explicit current for Rs = 0."""
-    with np.errstate(over="ignore"):
-        return iph - i0 * np.expm1(v / a) - v * g
+    return iph - scaled_expm1(i0, v / a) - v * g
 
 
 def _current(v, iph, i0, a, rs, g):
@@ -102,10 +108,19 @@ def _voltage(i, iph, i0, a, rs, g):
             vd = vd_ideal
         else:
             ag = a * g
-            y = np.log(i0 / ag) + (iph + i0 - i) / ag
+            c_over_g = (iph + i0 - i) / g
+            log_ratio = np.log(ag / i0)
+            y = c_over_g / a - log_ratio
             w = wrightomega(y)
+            # two exact forms of the same value; each is used where its terms are smaller
+            # (rounding error ~ eps * largest term): the plain one, c/G - a*W, for small
+            # c/G; the log one, a*(ln W + ln(a*G/I0)), where c/G and a*W nearly cancel
             log_w = np.where(y > 0.0, np.log(w), y - w)  # y - W = ln W, exact
-            vd_shunt = a * (log_w + np.log(ag / i0))
+            vd_log = a * (log_w + log_ratio)
+            vd_plain = c_over_g - a * w
+            plain_better = (np.maximum(np.abs(c_over_g), a * w)
+                            < a * np.maximum(np.abs(log_w), np.abs(log_ratio)))
+            vd_shunt = np.where(plain_better, vd_plain, vd_log)
             use_ideal = (g == 0) | np.isinf(y)
             vd = np.where(use_ideal, vd_ideal, vd_shunt)
         return vd - i * rs
