@@ -1,0 +1,282 @@
+"""The virtual devices under test: double-diode cells and their operating point.
+
+This is the simulator's own physics, written independently of ``tracer.model`` (which uses
+the Lambert W function): every current here is found by a bracketed root search on the
+implicit double-diode equation, so a fit in the application that recovers these cells checks
+two separate codes.
+
+Generator convention inside this module (photocurrent positive).  With the junction voltage
+``vd`` as the free variable, every quantity of the circuit is explicit and monotone::
+
+    i_int(vd)  = Iph - I01 (exp(vd/a1) - 1) - I02 (exp(vd/a2) - 1) - vd/Rsh
+                 + Ibd exp((Vbd - vd)/s_bd)                    (reverse breakdown)
+    v_cell(vd) = vd - i_int(vd) Rs                             (at the cell's contacts)
+    i_gen(vd)  = i_int(vd) - (v_cell - s)/R_mem - v_cell/R_short
+
+with ``a = n Ns k T / q``.  ``s`` is the slow internal state of the optional memory branch
+(a resistance R_mem in series with a storage element whose voltage ``s`` relaxes towards the
+cell voltage with a time constant; it makes forward and reverse sweeps differ) and
+``R_short`` a fault short across the device.  ``v_cell`` rises and ``i_gen`` falls strictly
+with ``vd``, so any target (a terminal voltage, a current) has exactly one root in ``vd``.
+
+Temperature and irradiance laws (De Soto et al., Solar Energy 80 (2006) 78-88, as used by
+pvlib's ``calcparams_desoto``)::
+
+    Iph(G, T) = G/1000 * Iph_ref * (1 + alpha_rel (T - 25 C))
+    I01(T)    = I01_ref (T/T_ref)^3 exp(Eg_ref/(k T_ref) - Eg(T)/(k T))
+    Eg(T)     = Eg_ref (1 + dEg/dT (T - T_ref))
+and for the recombination diode the usual T^(5/2) exp(-Eg/(2kT)) law (textbook, from memory).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, fields, replace
+
+import numpy as np
+from scipy import constants
+from scipy.optimize import brentq
+
+#: Boltzmann constant over the elementary charge [V/K] (CODATA via scipy.constants).
+K_OVER_Q = constants.k / constants.e
+T_REF_K = 298.15
+G_REF_W_M2 = 1000.0
+_EXP_CAP = 700.0
+
+
+@dataclass(frozen=True)
+class CellParameters:
+    """A device at the reference conditions (1000 W/m2, 25 C); SI units."""
+
+    photocurrent_a: float = 0.038
+    saturation_current_1_a: float = 1.5e-12
+    ideality_1: float = 1.0
+    saturation_current_2_a: float = 5e-9
+    ideality_2: float = 2.0
+    series_resistance_ohm: float = 0.5
+    shunt_resistance_ohm: float = 1500.0
+    cells_in_series: int = 1
+    area_cm2: float = 1.0
+    bandgap_ev: float = 1.121
+    bandgap_tempco_per_k: float = -0.0002677
+    photocurrent_tempco_per_k: float = 0.0005
+    breakdown_voltage_v: float = -15.0
+    breakdown_current_a: float = 1e-3
+    breakdown_slope_v: float = 0.3
+    memory_resistance_ohm: float | None = None
+    memory_time_constant_s: float | None = None
+    label: str = ""
+
+    @classmethod
+    def field_names(cls) -> set[str]:
+        return {f.name for f in fields(cls)}
+
+    def with_changes(self, **changes) -> "CellParameters":
+        return replace(self, **changes)
+
+    @property
+    def has_memory(self) -> bool:
+        return bool(self.memory_resistance_ohm) and bool(self.memory_time_constant_s)
+
+
+@dataclass(frozen=True)
+class OperatingCell:
+    """Parameters at one irradiance and temperature, ready for the solver."""
+
+    iph: float
+    i01: float
+    a1: float
+    i02: float
+    a2: float
+    rs: float
+    gsh: float
+    vbd: float
+    ibd: float
+    sbd: float
+    g_mem: float
+    g_short: float
+
+
+def bandgap_ev(params: CellParameters, temperature_k: float) -> float:
+    return params.bandgap_ev * (1.0 + params.bandgap_tempco_per_k * (temperature_k - T_REF_K))
+
+
+def at_conditions(params: CellParameters, irradiance_w_m2: float, temperature_c: float,
+                  short_resistance_ohm: float | None = None) -> OperatingCell:
+    """The cell's circuit parameters at irradiance G [W/m2] and cell temperature [C]."""
+    t_k = temperature_c + 273.15
+    vt = K_OVER_Q * t_k
+    eg = bandgap_ev(params, t_k)
+    eg_ref = params.bandgap_ev
+    ratio = t_k / T_REF_K
+    i01 = params.saturation_current_1_a * ratio**3 * math.exp(
+        (eg_ref / T_REF_K - eg / t_k) / K_OVER_Q)
+    i02 = params.saturation_current_2_a * ratio**2.5 * math.exp(
+        (eg_ref / T_REF_K - eg / t_k) / (2.0 * K_OVER_Q))
+    iph = max(0.0, irradiance_w_m2 / G_REF_W_M2 * params.photocurrent_a
+              * (1.0 + params.photocurrent_tempco_per_k * (temperature_c - 25.0)))
+    ns = params.cells_in_series
+    g_mem = 1.0 / params.memory_resistance_ohm if params.has_memory else 0.0
+    return OperatingCell(
+        iph=iph, i01=i01, a1=params.ideality_1 * ns * vt, i02=i02, a2=params.ideality_2 * ns * vt,
+        rs=params.series_resistance_ohm, gsh=1.0 / params.shunt_resistance_ohm,
+        vbd=params.breakdown_voltage_v, ibd=params.breakdown_current_a,
+        sbd=params.breakdown_slope_v, g_mem=g_mem,
+        g_short=1.0 / short_resistance_ohm if short_resistance_ohm else 0.0)
+
+
+# --------------------------------------------------------------------------- scalar circuit
+
+
+def _exp(x: float) -> float:
+    return math.exp(x if x < _EXP_CAP else _EXP_CAP)
+
+
+def internal_current(c: OperatingCell, vd: float) -> float:
+    return (c.iph - c.i01 * (_exp(vd / c.a1) - 1.0) - c.i02 * (_exp(vd / c.a2) - 1.0)
+            - vd * c.gsh + c.ibd * _exp((c.vbd - vd) / c.sbd))
+
+
+def cell_point(c: OperatingCell, vd: float, memory_v: float = 0.0) -> tuple[float, float]:
+    """(v_cell, i_gen) at junction voltage ``vd``."""
+    i_int = internal_current(c, vd)
+    v_cell = vd - i_int * c.rs
+    i_gen = i_int - (v_cell - memory_v) * c.g_mem - v_cell * c.g_short
+    return v_cell, i_gen
+
+
+def solve_increasing(fn, target: float, guess: float) -> float:
+    """Root of ``fn(x) = target`` for a strictly increasing ``fn``: bracket, then Brent."""
+    lo = hi = guess
+    step = 0.5
+    f_lo = fn(lo) - target
+    if f_lo == 0.0:
+        return lo
+    if f_lo > 0.0:
+        for _ in range(200):
+            hi, lo = lo, lo - step
+            step *= 2.0
+            f_lo = fn(lo) - target
+            if f_lo <= 0.0:
+                break
+        else:
+            raise ArithmeticError("no lower bracket")
+    else:
+        for _ in range(200):
+            lo, hi = hi, hi + step
+            step *= 2.0
+            if fn(hi) - target >= 0.0:
+                break
+        else:
+            raise ArithmeticError("no upper bracket")
+    if fn(lo) - target == 0.0:
+        return lo
+    return brentq(lambda x: fn(x) - target, lo, hi, xtol=1e-15, rtol=4 * np.finfo(float).eps, maxiter=200)
+
+
+@dataclass(frozen=True)
+class CircuitPoint:
+    """One operating point of SMU + leads + device (load convention for the current)."""
+
+    terminal_voltage_v: float   # at the SMU output terminals
+    cell_voltage_v: float       # at the device contacts (where four-wire sense leads sit)
+    load_current_a: float       # into the device's + terminal
+    in_compliance: bool
+
+
+def operating_point(cell: OperatingCell | None, *, mode: str, level: float, limit: float,
+                    lead_resistance_ohm: float, remote_sense: bool,
+                    memory_v: float = 0.0) -> CircuitPoint:
+    """Solve the SMU (voltage or current source with a compliance clamp) into the device.
+
+    ``lead_resistance_ohm`` is the total of both force leads; with two-wire sensing the SMU
+    regulates its own terminals, with four-wire sensing it regulates the device contacts.
+    ``cell`` None means an open circuit (no pixel connected).
+    """
+    limit = abs(limit)
+    r_lead = lead_resistance_ohm
+    if cell is None:
+        if mode == "VOLT":
+            return CircuitPoint(level, level, 0.0, False)
+        if level == 0.0:
+            return CircuitPoint(0.0, 0.0, 0.0, False)
+        v = math.copysign(limit, level)
+        return CircuitPoint(v, v, 0.0, True)
+
+    def load_current(vd: float) -> float:
+        return -cell_point(cell, vd, memory_v)[1]
+
+    def regulated_voltage(vd: float) -> float:
+        v_cell, i_gen = cell_point(cell, vd, memory_v)
+        return v_cell if remote_sense else v_cell - i_gen * r_lead
+
+    def point(vd: float, clamped: bool) -> CircuitPoint:
+        v_cell, i_gen = cell_point(cell, vd, memory_v)
+        i_load = -i_gen
+        return CircuitPoint(v_cell + i_load * r_lead, v_cell, i_load, clamped)
+
+    if mode == "VOLT":
+        vd = solve_increasing(regulated_voltage, level, level)
+        p = point(vd, False)
+        if abs(p.load_current_a) > limit:
+            vd = solve_increasing(load_current, math.copysign(limit, p.load_current_a), vd)
+            p = point(vd, True)
+        return p
+    vd = solve_increasing(load_current, level, 0.0)
+    p = point(vd, False)
+    v_regulated = p.cell_voltage_v if remote_sense else p.terminal_voltage_v
+    if abs(v_regulated) > limit:
+        vd = solve_increasing(regulated_voltage, math.copysign(limit, v_regulated), vd)
+        p = point(vd, True)
+    return p
+
+
+def open_circuit_voltage(cell: OperatingCell, memory_v: float = 0.0) -> float:
+    vd = solve_increasing(lambda x: -cell_point(cell, x, memory_v)[1], 0.0, 0.0)
+    return cell_point(cell, vd, memory_v)[0]
+
+
+# --------------------------------------------------------------------------- vectorised
+
+
+def current_at_voltage(cell: OperatingCell, voltage_v, memory_v: float = 0.0,
+                       iterations: int = 200) -> np.ndarray:
+    """Generator-convention current at cell voltages (array), by vectorised bisection on vd.
+
+    Used for whole curves (and by tests); the SMU path uses :func:`operating_point`.
+    """
+    v = np.atleast_1d(np.asarray(voltage_v, dtype=float))
+
+    def exp(x):
+        return np.exp(np.minimum(x, _EXP_CAP))
+
+    def curve(vd):
+        i_int = (cell.iph - cell.i01 * (exp(vd / cell.a1) - 1.0) - cell.i02 * (exp(vd / cell.a2) - 1.0)
+                 - vd * cell.gsh + cell.ibd * exp((cell.vbd - vd) / cell.sbd))
+        v_cell = vd - i_int * cell.rs
+        i_gen = i_int - (v_cell - memory_v) * cell.g_mem - v_cell * cell.g_short
+        return v_cell, i_gen
+
+    lo = v - 1.0
+    hi = v + 1.0
+    step = np.full_like(v, 1.0)
+    for _ in range(200):
+        low_bad = curve(lo)[0] > v
+        if not low_bad.any():
+            break
+        lo = np.where(low_bad, lo - step, lo)
+        step = np.where(low_bad, step * 2.0, step)
+    step = np.full_like(v, 1.0)
+    for _ in range(200):
+        high_bad = curve(hi)[0] < v
+        if not high_bad.any():
+            break
+        hi = np.where(high_bad, hi + step, hi)
+        step = np.where(high_bad, step * 2.0, step)
+    for _ in range(iterations):
+        mid = 0.5 * (lo + hi)
+        below = curve(mid)[0] < v
+        lo = np.where(below, mid, lo)
+        hi = np.where(below, hi, mid)
+        if np.all(hi - lo <= 4 * np.finfo(float).eps * np.maximum(1.0, np.abs(mid))):
+            break
+    return curve(0.5 * (lo + hi))[1]
