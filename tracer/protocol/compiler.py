@@ -182,7 +182,8 @@ def compile_plan(protocol: Protocol, *, bench: Any = None,
     or 1 … the bench switch's channels when the sample does not say. With ``bench`` the
     protocol is checked against it again (hard limits, instruments). ``sample_overrides``
     replaces sample fields for this run: ``id`` (or ``sample_id``), ``area_cm2``,
-    ``cells_in_series``, ``description``.
+    ``cells_in_series``, ``description``. On a bench with a switch, a protocol without a
+    pixel loop starts with ``SelectPixel(1)`` (a switch connects nothing until told).
     """
     if not isinstance(protocol, Protocol):
         raise TypeError(f"compile_plan needs a Protocol; got {type(protocol).__name__}")
@@ -204,6 +205,11 @@ def compile_plan(protocol: Protocol, *, bench: Any = None,
                 steps += [_compile_step(s, suffix=f"-p{pixel}") for s in step.steps]
         else:
             steps.append(_compile_step(step))
+    if (bench is not None and getattr(bench, "switch_channels", None)
+            and not any(isinstance(s, P.SelectPixel) for s in steps)):
+        # A bench with a pixel switch connects nothing until a channel is closed: a protocol
+        # without a pixel loop measures the sample on channel 1.
+        steps.insert(0, P.SelectPixel(pixel=1))
     if problems:
         raise ProtocolError(problems)
     c = protocol.checks
