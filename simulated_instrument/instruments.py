@@ -130,7 +130,7 @@ class SmuInstrument(BenchInstrument):
                 self.s.function = value
                 self._invalidate_buffer()
 
-        t.setting("[SOURce:]FUNCtion[:MODE]", Choice("VOLTage", "CURRent"),
+        t.setting("[SOURce#1:]FUNCtion[:MODE]", Choice("VOLTage", "CURRent"),
                   lambda ctx: self.s.function, set_function)
 
         for f in ("VOLT", "CURR"):
@@ -142,7 +142,7 @@ class SmuInstrument(BenchInstrument):
                 self.s.level[f] = v
                 w.check_protection()
 
-            t.setting(f"[SOURce:]{word}[:LEVel][:IMMediate][:AMPLitude]",
+            t.setting(f"[SOURce#1:]{word}[:LEVel][:IMMediate][:AMPLitude]",
                       Numeric(unit, lambda ctx, f=f: -self._source_max(f), lambda ctx, f=f: self._source_max(f), 0.0),
                       lambda ctx, f=f: self.s.level[f], put_level)
 
@@ -159,14 +159,14 @@ class SmuInstrument(BenchInstrument):
                     return _range_for(self.s.level[f], RANGES[f]) or RANGES[f][-1]
                 return self.s.source_range[f]
 
-            t.setting(f"[SOURce:]{word}:RANGe[:UPPer]", Numeric(unit, 0.0, RANGES[f][-1], RANGES[f][-1]),
+            t.setting(f"[SOURce#1:]{word}:RANGe[:UPPer]", Numeric(unit, 0.0, RANGES[f][-1], RANGES[f][-1]),
                       get_source_range, put_source_range)
 
             def put_source_auto(ctx, v, f=f):
                 self._idle()
                 self.s.source_auto[f] = v
 
-            t.setting(f"[SOURce:]{word}:RANGe:AUTO", Boolean(),
+            t.setting(f"[SOURce#1:]{word}:RANGe:AUTO", Boolean(),
                       lambda ctx, f=f: self.s.source_auto[f], put_source_auto)
 
             if f == "VOLT":
@@ -174,15 +174,15 @@ class SmuInstrument(BenchInstrument):
                     self.s.ovp_v = v
                     w.check_protection()
 
-                t.setting("[SOURce:]VOLTage:PROTection[:LEVel]", Numeric("V", 0.0, OVP_MAX_V, OVP_MAX_V),
+                t.setting("[SOURce#1:]VOLTage:PROTection[:LEVel]", Numeric("V", 0.0, OVP_MAX_V, OVP_MAX_V),
                           lambda ctx: self.s.ovp_v, put_ovp)
-                t.add("[SOURce:]VOLTage:PROTection:TRIPped", query=lambda ctx: w.ovp_tripped, reply=Boolean())
+                t.add("[SOURce#1:]VOLTage:PROTection:TRIPped", query=lambda ctx: w.ovp_tripped, reply=Boolean())
 
             def put_mode(ctx, v, f=f):
                 self._idle()
                 self.s.source_mode[f] = v
 
-            t.setting(f"[SOURce:]{word}:MODE", Choice("FIXed", "LIST"),
+            t.setting(f"[SOURce#1:]{word}:MODE", Choice("FIXed", "LIST"),
                       lambda ctx, f=f: self.s.source_mode[f], put_mode)
 
             def put_list(ctx, values, f=f):
@@ -191,9 +191,9 @@ class SmuInstrument(BenchInstrument):
                 self._invalidate_buffer()
 
             list_param = NumericList(unit, -RANGES[f][-1], RANGES[f][-1], LIST_MAX_POINTS)
-            t.add(f"[SOURce:]LIST:{word}", set=put_list, params=(list_param,),
+            t.add(f"[SOURce#1:]LIST:{word}", set=put_list, params=(list_param,),
                   query=lambda ctx, f=f: ",".join(format_nr3(v) for v in self.s.lists[f]))
-            t.add(f"[SOURce:]LIST:{word}:POINts", query=lambda ctx, f=f: str(len(self.s.lists[f])))
+            t.add(f"[SOURce#1:]LIST:{word}:POINts", query=lambda ctx, f=f: str(len(self.s.lists[f])))
 
         # compliance (sense subsystem)
         for f, word in (("CURR", "CURRent"), ("VOLT", "VOLTage")):
@@ -204,9 +204,9 @@ class SmuInstrument(BenchInstrument):
                 self.s.compliance[f] = v
                 w.check_protection()
 
-            t.setting(f"[SENSe:]{word}[:DC]:PROTection[:LEVel]", Numeric(unit, lo, hi, default),
+            t.setting(f"[SENSe#1:]{word}[:DC]:PROTection[:LEVel]", Numeric(unit, lo, hi, default),
                       lambda ctx, f=f: self.s.compliance[f], put_compliance)
-            t.add(f"[SENSe:]{word}[:DC]:PROTection:TRIPped", query=lambda ctx, f=f: self.s.last_clamped[f],
+            t.add(f"[SENSe#1:]{word}[:DC]:PROTection:TRIPped", query=lambda ctx, f=f: self.s.last_clamped[f],
                   reply=Boolean())
 
             def put_measure_range(ctx, v, f=f):
@@ -216,9 +216,9 @@ class SmuInstrument(BenchInstrument):
             def get_measure_range(ctx, f=f):
                 return self.s.last_range[f] if self.s.measure_auto[f] else self.s.measure_range[f]
 
-            t.setting(f"[SENSe:]{word}[:DC]:RANGe[:UPPer]", Numeric(unit, 0.0, RANGES[f][-1], RANGES[f][-1]),
+            t.setting(f"[SENSe#1:]{word}[:DC]:RANGe[:UPPer]", Numeric(unit, 0.0, RANGES[f][-1], RANGES[f][-1]),
                       get_measure_range, put_measure_range)
-            t.setting(f"[SENSe:]{word}[:DC]:RANGe:AUTO", Boolean(),
+            t.setting(f"[SENSe#1:]{word}[:DC]:RANGe:AUTO", Boolean(),
                       lambda ctx, f=f: self.s.measure_auto[f],
                       lambda ctx, v, f=f: self.s.measure_auto.__setitem__(f, v))
 
@@ -226,14 +226,14 @@ class SmuInstrument(BenchInstrument):
                 self._idle()
                 self.s.nplc = v
 
-            t.setting(f"[SENSe:]{word}[:DC]:NPLCycles", Numeric(None, 0.0, 10.0, 1.0),
+            t.setting(f"[SENSe#1:]{word}[:DC]:NPLCycles", Numeric(None, 0.0, 10.0, 1.0),
                       lambda ctx: self.s.nplc, put_nplc)
 
         def put_remote(ctx, v):
             self.s.remote_sense = v
             w.check_protection()
 
-        t.setting("[SENSe:]REMote[:STATe]", Boolean(), lambda ctx: self.s.remote_sense, put_remote)
+        t.setting("[SENSe#1:]REMote[:STATe]", Boolean(), lambda ctx: self.s.remote_sense, put_remote)
 
         # output
         def put_output(ctx, on):
@@ -251,8 +251,8 @@ class SmuInstrument(BenchInstrument):
                 self.s.output_on = False
                 w.output_off_reason = "OUTP OFF"
 
-        t.setting("OUTPut[:STATe]", Boolean(), lambda ctx: self.s.output_on, put_output)
-        t.add("OUTPut:PROTection:TRIPped", query=lambda ctx: w.forced_off or w.ovp_tripped, reply=Boolean())
+        t.setting("OUTPut#1[:STATe]", Boolean(), lambda ctx: self.s.output_on, put_output)
+        t.add("OUTPut#1:PROTection:TRIPped", query=lambda ctx: w.forced_off or w.ovp_tripped, reply=Boolean())
 
         def clear_protection(ctx):
             w.ovp_tripped = False
@@ -260,8 +260,8 @@ class SmuInstrument(BenchInstrument):
                 raise ScpiError(-221, "interlock open")
             w.forced_off = False
 
-        t.add("OUTPut:PROTection:CLEar", set=clear_protection)
-        t.add("OUTPut:INTerlock:TRIPped", query=lambda ctx: w.interlock_open, reply=Boolean())
+        t.add("OUTPut#1:PROTection:CLEar", set=clear_protection)
+        t.add("OUTPut#1:INTerlock:TRIPped", query=lambda ctx: w.interlock_open, reply=Boolean())
 
         # measurements
         def meas_current(ctx):
@@ -389,7 +389,7 @@ class LightInstrument(BenchInstrument):
             w.advance_to_now()
             w.set_lamp_setpoint(v)
 
-        t.setting("[SOURce:]IRRadiance[:LEVel]",
+        t.setting("[SOURce#1:]IRRadiance[:LEVel]",
                   Numeric(None, 0.0, 1500.0, lambda ctx: float(w.settings["light"]["setpoint_w_m2"])),
                   lambda ctx: w.lamp_setpoint, put_irradiance)
 
@@ -442,7 +442,7 @@ class ThermometerInstrument(BenchInstrument):
             w.advance_to_now()
             w.stage_setpoint_c = v
 
-        t.setting("[SOURce:]TEMPerature[:LEVel]",
+        t.setting("[SOURce#1:]TEMPerature[:LEVel]",
                   Numeric(None, -20.0, 120.0, lambda ctx: float(w.settings["stage"]["setpoint_c"])),
                   lambda ctx: w.stage_setpoint_c, put_setpoint)
 

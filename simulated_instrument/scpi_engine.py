@@ -596,7 +596,11 @@ class PatternNode:
 
 
 def parse_pattern(pattern: str) -> tuple[PatternNode, ...]:
-    """``[SOURce#:]VOLTage[:LEVel]`` -> nodes (``#`` marks a numeric suffix up to 9)."""
+    """``[SOURce#1:]VOLTage[:LEVel]`` -> nodes.
+
+    ``#`` marks a node that takes a numeric suffix, ``#N`` one whose suffix may be 1 .. N
+    (plain ``#``: 1 .. 9).  An absent suffix means 1.
+    """
     nodes: list[PatternNode] = []
     i = 0
     while i < len(pattern):
@@ -616,9 +620,9 @@ def parse_pattern(pattern: str) -> tuple[PatternNode, ...]:
             word = pattern[i:j]
             i = j
         suffix_max = 0
-        if word.endswith("#"):
-            word = word[:-1]
-            suffix_max = 9
+        if "#" in word:
+            word, _, top = word.partition("#")
+            suffix_max = int(top) if top else 9
         short, long_ = mnemonic_forms(word)
         nodes.append(PatternNode(short, long_, optional, suffix_max))
     return tuple(nodes)
