@@ -106,3 +106,23 @@ def test_maximum_power_point_matches_brent_search(model):
     assert f.isc_a == pytest.approx(model.current(0.0), rel=1e-14)
     assert abs(model.current(f.voc_v)) <= 1e-10 * f.isc_a
     assert f.ff == pytest.approx(f.pmax_w / (f.isc_a * f.voc_v), rel=1e-15)
+
+
+def test_safeguarded_newton_falls_back_to_bisection():
+    # textbook case: plain Newton on arctan(x) - c diverges from far starts (it overshoots
+    # further each step); the bracket safeguard must still converge. Reference root:
+    # tan(c) from numpy.
+    from tracer.model._newton import bracketed_newton
+
+    targets = np.array([0.5, -1.2, 1.5, 0.0])
+
+    def residual(x, idx):
+        return np.arctan(x) - targets[idx], 1.0 / (1.0 + x * x)
+
+    lower = np.full(4, -1e3)
+    upper = np.full(4, 1e3)
+    start = np.array([900.0, -900.0, 50.0, 999.0])
+    root = bracketed_newton(residual, lower, upper, start, atol=1e-15)
+    np.testing.assert_allclose(root, np.tan(targets), rtol=1e-12, atol=1e-15)
+    with pytest.raises(RuntimeError, match="did not converge"):
+        bracketed_newton(residual, lower, upper, start, atol=0.0, rtol=0.0, max_iter=3)

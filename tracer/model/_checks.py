@@ -115,16 +115,29 @@ def check_scalar_parameter(name, value) -> float:
     return float(check_parameter(name, value))
 
 
+#: Above this exponent exp() is formed in log space (float64 exp overflows past ~709.78).
+_EXP_SAFE = 700.0
+
+
 def scaled_expm1(scale, x):
     """``scale * (exp(x) - 1)`` without overflowing before the product does.
 
     ``expm1`` alone overflows at ``x > 709.78`` even when ``scale`` is small enough for the
-    product to be representable; above ``x = 1`` the product is formed in log space.
+    product to be representable; there the product is formed in log space.
     ``scale = 0`` gives 0 for every finite ``x``.
     """
-    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-        big = x > 1.0
-        small_part = scale * np.expm1(np.minimum(x, 1.0))
-        if not np.any(big):
-            return small_part
-        return np.where(big, np.exp(x + np.log(scale)) - scale, small_part)
+    return scaled_exp_pair(scale, x)[0]
+
+
+def scaled_exp_pair(scale, x):
+    """``(scale * (exp(x) - 1), scale * exp(x))``, overflow-safe like :func:`scaled_expm1`."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        em1 = np.expm1(x)
+        minus_one = scale * em1
+        full = scale * (em1 + 1.0)
+    big = x > _EXP_SAFE
+    if np.any(big):
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            full = np.where(big, np.exp(x + np.log(scale)), full)
+            minus_one = np.where(big, full - scale, minus_one)
+    return minus_one, full

@@ -10,19 +10,26 @@ quantity of the equivalent circuit is explicit:
 
 with :math:`a_k = n_k N_s V_t` and :math:`G_{sh} = 1/R_{sh}`. The single-diode model is
 the case :math:`I_{02} = 0`. :math:`I(V_d)` is concave and decreasing and
-:math:`V(V_d)` is increasing, so every problem below has a monotone residual and a
-bracket; it is solved with :func:`tracer.model._newton.bracketed_newton`.
+:math:`V(V_d)` is increasing, so every problem below has a monotone residual and an
+analytic bracket; it is solved with :func:`tracer.model._newton.bracketed_newton`.
+
+Starting points: removing either diode raises :math:`I(V_d)`, so the explicit
+single-diode solutions (Lambert W) with diode 1 alone and with diode 2 alone bound the
+junction voltage from above. Newton's method on these convex increasing residuals,
+started at or above the root, descends monotonically onto it; with one diode dominant
+the start is already nearly exact.
 
 All functions here take *flat* float arrays of equal length (already validated and
 broadcast) and return flat arrays.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 
 import numpy as np
 
-from tracer.model._checks import scaled_expm1
+from tracer.model._checks import scaled_exp_pair
+from tracer.model._lambert import sd_current, sd_voltage
 from tracer.model._newton import bracketed_newton
 
 #: Absolute tolerance on the junction voltage, as a fraction of the smallest modified
@@ -43,8 +50,10 @@ class FlatNetwork:
     shunt_conductance_s: np.ndarray
 
     def take(self, index):
-        """Sub-network of the elements ``index``."""
-        return FlatNetwork(*(getattr(self, f)[index] for f in self.__dataclass_fields__))
+        """Sub-network of the elements ``index`` (a slice gives views)."""
+        if isinstance(index, slice) and index == slice(None):
+            return self
+        return FlatNetwork(*(getattr(self, f.name)[index] for f in fields(self)))
 
     @property
     def size(self) -> int:
@@ -55,59 +64,92 @@ class FlatNetwork:
         a2 = np.where(self.saturation_current_2_a > 0, self.n_ns_vt_2_v, np.inf)
         return ATOL_PER_A * np.minimum(self.n_ns_vt_1_v, a2)
 
+    def has_second_diode(self) -> bool:
+        return bool(np.any(self.saturation_current_2_a > 0))
+
 
 def make_flat(shape, photocurrent_a, saturation_current_1_a, n_ns_vt_1_v,
               saturation_current_2_a, n_ns_vt_2_v, series_resistance_ohm,
               shunt_conductance_s) -> FlatNetwork:
-    """Broadcast parameters to ``shape`` and flatten them."""
-    arrays = [np.broadcast_to(np.asarray(p, dtype=float), shape).ravel()
+    """Broadcast parameters to ``shape`` and flatten them (contiguous copies)."""
+    arrays = [np.ascontiguousarray(np.broadcast_to(np.asarray(p, dtype=float), shape)).ravel()
               for p in (photocurrent_a, saturation_current_1_a, n_ns_vt_1_v,
                         saturation_current_2_a, n_ns_vt_2_v, series_resistance_ohm,
                         shunt_conductance_s)]
     return FlatNetwork(*arrays)
 
 
+def junction_state(vd, net: FlatNetwork, curvature=False):
+    r"""Current :math:`I(V_d)` [A], conductance :math:`D = -dI/dV_d` [S] and, if asked,
+    :math:`dD/dV_d` [S/V], at junction voltage ``vd`` [V]."""
+    a1, a2 = net.n_ns_vt_1_v, net.n_ns_vt_2_v
+    m1, e1 = scaled_exp_pair(net.saturation_current_1_a, vd / a1)
+    current = net.photocurrent_a - m1 - vd * net.shunt_conductance_s
+    with np.errstate(over="ignore"):  # only beyond the float range, where I is -inf too
+        d1 = e1 / a1
+        dd = d1 / a1
+        conductance = d1 + net.shunt_conductance_s
+        if net.has_second_diode():
+            m2, e2 = scaled_exp_pair(net.saturation_current_2_a, vd / a2)
+            current = current - m2
+            d2 = e2 / a2
+            conductance = conductance + d2
+            dd = dd + d2 / a2
+    return (current, conductance, dd) if curvature else (current, conductance)
+
+
 def junction_current(vd, net: FlatNetwork):
     """Terminal current :math:`I(V_d)` [A] (generator convention) at junction voltage [V]."""
-    return (net.photocurrent_a
-            - scaled_expm1(net.saturation_current_1_a, vd / net.n_ns_vt_1_v)
-            - scaled_expm1(net.saturation_current_2_a, vd / net.n_ns_vt_2_v)
-            - vd * net.shunt_conductance_s)
-
-
-def junction_slopes(vd, net: FlatNetwork):
-    r"""Conductance :math:`D = -dI/dV_d` [S] and its derivative :math:`dD/dV_d` [S/V]."""
-    i02 = net.saturation_current_2_a
-    a1, a2 = net.n_ns_vt_1_v, net.n_ns_vt_2_v
-    with np.errstate(over="ignore", invalid="ignore"):
-        d1 = net.saturation_current_1_a / a1 * np.exp(vd / a1)
-        d2 = np.where(i02 > 0, i02 / a2 * np.exp(vd / a2), 0.0)
-    return d1 + d2 + net.shunt_conductance_s, d1 / a1 + d2 / a2
+    current = net.photocurrent_a - vd * net.shunt_conductance_s
+    current = current - scaled_exp_pair(net.saturation_current_1_a, vd / net.n_ns_vt_1_v)[0]
+    if net.has_second_diode():
+        current = current - scaled_exp_pair(net.saturation_current_2_a,
+                                            vd / net.n_ns_vt_2_v)[0]
+    return current
 
 
 def _diode_log_bound(excess_a, net: FlatNetwork):
-    """Smallest :math:`a_k \\log(1 + X / I_{0k})` over the diodes present [V].
+    """Smallest :math:`a_k \\ln(1 + X / I_{0k})` over the diodes present [V].
 
     At a junction voltage above this bound the diode currents alone exceed ``excess_a``.
     """
     with np.errstate(divide="ignore", invalid="ignore"):
-        b1 = net.n_ns_vt_1_v * np.log1p(excess_a / net.saturation_current_1_a)
-        b2 = np.where(net.saturation_current_2_a > 0,
-                      net.n_ns_vt_2_v * np.log1p(excess_a / net.saturation_current_2_a),
-                      np.inf)
-    return np.minimum(b1, b2)
+        bound = net.n_ns_vt_1_v * np.log1p(excess_a / net.saturation_current_1_a)
+        if net.has_second_diode():
+            b2 = np.where(net.saturation_current_2_a > 0,
+                          net.n_ns_vt_2_v * np.log1p(excess_a / net.saturation_current_2_a),
+                          np.inf)
+            bound = np.minimum(bound, b2)
+    return bound
+
+
+def _single_diode_junction_bound(current_a, net: FlatNetwork):
+    """Upper bound on the junction voltage carrying ``current_a`` [V] (each diode alone)."""
+    g = net.shunt_conductance_s
+    bound = sd_voltage(current_a, net.photocurrent_a, net.saturation_current_1_a,
+                       net.n_ns_vt_1_v, 0.0, g)
+    if net.has_second_diode():
+        i02 = net.saturation_current_2_a
+        with_2 = i02 > 0
+        b2 = sd_voltage(current_a, net.photocurrent_a, np.where(with_2, i02, 1.0),
+                        net.n_ns_vt_2_v, 0.0, g)
+        bound = np.where(with_2, np.minimum(bound, b2), bound)
+    return bound
 
 
 def open_circuit_voltage(net: FlatNetwork):
     """Voc [V]: the junction voltage where :math:`I(V_d) = 0` (there :math:`V = V_d`)."""
     upper = _diode_log_bound(net.photocurrent_a, net)
     lower = np.zeros_like(upper)
+    if not net.has_second_diode():  # single diode: explicit
+        return np.clip(_single_diode_junction_bound(0.0, net), lower, upper)
+    start = _single_diode_junction_bound(0.0, net)
 
     def residual(x, idx):  # -I(Vd): increasing and convex
-        sub = net.take(idx)
-        return -junction_current(x, sub), junction_slopes(x, sub)[0]
+        current, conductance = junction_state(x, net.take(idx))
+        return -current, conductance
 
-    return bracketed_newton(residual, lower, upper, upper, atol=net.voltage_scale_v())
+    return bracketed_newton(residual, lower, upper, start, atol=net.voltage_scale_v())
 
 
 def current_at_voltage(voltage_v, net: FlatNetwork, voc_v):
@@ -124,14 +166,25 @@ def current_at_voltage(voltage_v, net: FlatNetwork, voc_v):
     ideal = rs == 0  # Vd = V exactly
     lower = np.where(ideal, v, lower)
     upper = np.where(ideal, v, upper)
+    # start: junction voltage of each diode alone (explicit), an upper bound on the root
+    rs_safe = np.where(ideal, 1.0, rs)
+    start = v + rs * sd_current(v, net.photocurrent_a, net.saturation_current_1_a,
+                                net.n_ns_vt_1_v, rs_safe, net.shunt_conductance_s)
+    if net.has_second_diode():
+        i02 = net.saturation_current_2_a
+        with_2 = i02 > 0
+        start_2 = v + rs * sd_current(v, net.photocurrent_a, np.where(with_2, i02, 1.0),
+                                      net.n_ns_vt_2_v, rs_safe, net.shunt_conductance_s)
+        start = np.where(with_2, np.minimum(start, start_2), start)
+    start = np.where(np.isnan(start), upper, start)
 
     def residual(x, idx):  # Vd - Rs*I(Vd) - V: increasing and convex
         sub = net.take(idx)
         r = sub.series_resistance_ohm
-        return (x - r * junction_current(x, sub) - v[idx],
-                1.0 + r * junction_slopes(x, sub)[0])
+        current, conductance = junction_state(x, sub)
+        return x - r * current - v[idx], 1.0 + r * conductance
 
-    vd = bracketed_newton(residual, lower, upper, upper, atol=net.voltage_scale_v())
+    vd = bracketed_newton(residual, lower, upper, start, atol=net.voltage_scale_v())
     return junction_current(vd, net)
 
 
@@ -160,12 +213,14 @@ def voltage_at_current(current_a, net: FlatNetwork):
     unreachable = ~(lower > -np.inf)
     lower = np.where(unreachable, 0.0, lower)
     upper = np.where(unreachable, 0.0, upper)
+    start = _single_diode_junction_bound(i, net)
+    start = np.where(np.isnan(start), upper, start)
 
     def residual(x, idx):  # I - I(Vd): increasing and convex
-        sub = net.take(idx)
-        return i[idx] - junction_current(x, sub), junction_slopes(x, sub)[0]
+        current, conductance = junction_state(x, net.take(idx))
+        return i[idx] - current, conductance
 
-    vd = bracketed_newton(residual, lower, upper, upper, atol=net.voltage_scale_v())
+    vd = bracketed_newton(residual, lower, upper, start, atol=net.voltage_scale_v())
     vd = np.where(unreachable & ~np.isnan(i), -np.inf, vd)
     with np.errstate(invalid="ignore"):
         return vd - i * net.series_resistance_ohm
@@ -176,7 +231,8 @@ def maximum_power_point(net: FlatNetwork, voc_v):
 
     Solves :math:`dP/dV_d = I (1 + 2 R_s D) - V_d D = 0` (with :math:`P = V I`,
     :math:`D = -dI/dV_d`) for the junction voltage on the bracket :math:`[0, V_{oc}]`;
-    :math:`P(V)` is strictly concave there, so the root is unique.
+    :math:`P(V)` is strictly concave there (:math:`I(V)` is concave), so the root is
+    unique.
 
     Returns
     -------
@@ -193,8 +249,7 @@ def maximum_power_point(net: FlatNetwork, voc_v):
     def residual(x, idx):  # -dP/dVd: increasing through the root
         sub = net.take(idx)
         r = sub.series_resistance_ohm
-        cur = junction_current(x, sub)
-        d, dd = junction_slopes(x, sub)
+        cur, d, dd = junction_state(x, sub, curvature=True)
         f = x * d - cur * (1.0 + 2.0 * r * d)
         df = 2.0 * d * (1.0 + r * d) + dd * (x - 2.0 * cur * r)
         return f, df

@@ -100,10 +100,13 @@ def double_diode_current(voltage_v, photocurrent_a, saturation_current_1_a,
                                n_ns_vt_1_v, n_ns_vt_2_v, series_resistance_ohm,
                                shunt_resistance_ohm)
     v = np.asarray(voltage_v, dtype=float)
+    # Voc depends on the parameters only: solve it on their own shape, then broadcast
+    param_net, param_shape = _network_and_shape(0.0, params)
+    voc = np.reshape(_network.open_circuit_voltage(param_net), param_shape)
     net, shape = _network_and_shape(v, params)
-    voc = _network.open_circuit_voltage(net)
     flat_v = np.broadcast_to(v, shape).ravel()
-    return _out(_network.current_at_voltage(flat_v, net, voc), shape)
+    flat_voc = np.broadcast_to(voc, shape).ravel()
+    return _out(_network.current_at_voltage(flat_v, net, flat_voc), shape)
 
 
 def double_diode_voltage(current_a, photocurrent_a, saturation_current_1_a,

@@ -45,14 +45,9 @@ import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.special import wrightomega
 
-from tracer.model._checks import (
-    check_count,
-    check_parameter,
-    check_scalar_parameter,
-    scaled_expm1,
-)
+from tracer.model._checks import check_count, check_parameter, check_scalar_parameter
+from tracer.model._lambert import sd_current, sd_voltage
 from tracer.model._network import make_flat
 from tracer.model.figures import CurveFigures, figures_from_parts
 from tracer.model.thermal import thermal_voltage
@@ -71,59 +66,6 @@ def _check_functional(photocurrent_a, saturation_current_a, n_ns_vt_v,
     rs = check_parameter("series_resistance_ohm", series_resistance_ohm)
     rsh = check_parameter("shunt_resistance_ohm", shunt_resistance_ohm)
     return iph, i0, a, rs, 1.0 / rsh
-
-
-def _current_lambert(v, iph, i0, a, rs, g):
-    """Lambert W current for Rs > 0 (see module docstring)."""
-    s = 1.0 + rs * g
-    inv_as = 1.0 / (a * s)
-    x = (v + rs * (iph + i0)) * inv_as + np.log(rs * i0 * inv_as)
-    w = wrightomega(x)
-    return (iph + i0) / s - v * (g / s) - (a / rs) * w
-
-
-def _current_ideal(v, iph, i0, a, g):
-    """Explicit current for Rs = 0."""
-    return iph - scaled_expm1(i0, v / a) - v * g
-
-
-def _current(v, iph, i0, a, rs, g):
-    positive = rs > 0
-    if np.all(positive):
-        return _current_lambert(v, iph, i0, a, rs, g)
-    if not np.any(positive):
-        return _current_ideal(v, iph, i0, a, g)
-    rs_safe = np.where(positive, rs, 1.0)
-    return np.where(positive, _current_lambert(v, iph, i0, a, rs_safe, g),
-                    _current_ideal(v, iph, i0, a, g))
-
-
-def _voltage(i, iph, i0, a, rs, g):
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        # ideal shunt (Gsh = 0): V = a*ln(1 + (Iph - I)/I0) - I*Rs
-        ratio = (iph - i) / i0
-        vd_ideal = np.where(ratio > -1.0, a * np.log1p(ratio), -np.inf)
-        vd_ideal = np.where(np.isnan(ratio), np.nan, vd_ideal)
-        if np.all(g == 0):
-            vd = vd_ideal
-        else:
-            ag = a * g
-            c_over_g = (iph + i0 - i) / g
-            log_ratio = np.log(ag / i0)
-            y = c_over_g / a - log_ratio
-            w = wrightomega(y)
-            # two exact forms of the same value; each is used where its terms are smaller
-            # (rounding error ~ eps * largest term): the plain one, c/G - a*W, for small
-            # c/G; the log one, a*(ln W + ln(a*G/I0)), where c/G and a*W nearly cancel
-            log_w = np.where(y > 0.0, np.log(w), y - w)  # y - W = ln W, exact
-            vd_log = a * (log_w + log_ratio)
-            vd_plain = c_over_g - a * w
-            plain_better = (np.maximum(np.abs(c_over_g), a * w)
-                            < a * np.maximum(np.abs(log_w), np.abs(log_ratio)))
-            vd_shunt = np.where(plain_better, vd_plain, vd_log)
-            use_ideal = (g == 0) | np.isinf(y)
-            vd = np.where(use_ideal, vd_ideal, vd_shunt)
-        return vd - i * rs
 
 
 def single_diode_current(voltage_v, photocurrent_a, saturation_current_a, n_ns_vt_v,
@@ -162,7 +104,7 @@ def single_diode_current(voltage_v, photocurrent_a, saturation_current_a, n_ns_v
     iph, i0, a, rs, g = _check_functional(photocurrent_a, saturation_current_a, n_ns_vt_v,
                                           series_resistance_ohm, shunt_resistance_ohm)
     v = np.asarray(voltage_v, dtype=float)
-    return _scalar_or_array(_current(v, iph, i0, a, rs, g))
+    return _scalar_or_array(sd_current(v, iph, i0, a, rs, g))
 
 
 def single_diode_voltage(current_a, photocurrent_a, saturation_current_a, n_ns_vt_v,
@@ -190,7 +132,7 @@ def single_diode_voltage(current_a, photocurrent_a, saturation_current_a, n_ns_v
     iph, i0, a, rs, g = _check_functional(photocurrent_a, saturation_current_a, n_ns_vt_v,
                                           series_resistance_ohm, shunt_resistance_ohm)
     i = np.asarray(current_a, dtype=float)
-    return _scalar_or_array(_voltage(i, iph, i0, a, rs, g))
+    return _scalar_or_array(sd_voltage(i, iph, i0, a, rs, g))
 
 
 def single_diode_figures(photocurrent_a, saturation_current_a, n_ns_vt_v,
@@ -216,9 +158,9 @@ def single_diode_figures(photocurrent_a, saturation_current_a, n_ns_vt_v,
                                           series_resistance_ohm, shunt_resistance_ohm)
     shape = np.broadcast_shapes(iph.shape, i0.shape, a.shape, rs.shape, g.shape)
     net = make_flat(shape, iph, i0, a, 0.0, a, rs, g)
-    isc = _current(0.0, net.photocurrent_a, net.saturation_current_1_a, net.n_ns_vt_1_v,
+    isc = sd_current(0.0, net.photocurrent_a, net.saturation_current_1_a, net.n_ns_vt_1_v,
                    net.series_resistance_ohm, net.shunt_conductance_s)
-    voc = np.maximum(_voltage(0.0, net.photocurrent_a, net.saturation_current_1_a,
+    voc = np.maximum(sd_voltage(0.0, net.photocurrent_a, net.saturation_current_1_a,
                               net.n_ns_vt_1_v, net.series_resistance_ohm,
                               net.shunt_conductance_s), 0.0)
     return figures_from_parts(shape, isc, voc, net)
