@@ -15,6 +15,15 @@ def drain_errors(res) -> list[tuple[int, str]]:
     raise AssertionError("error queue did not empty")
 
 
+def command(res, message: str) -> None:
+    """Send a program message and wait until the instrument has executed it.
+
+    ``write`` returns as soon as the bytes are sent; a test that then looks at another
+    connection or at the harness must first know the message was handled.
+    """
+    assert res.query(f"{message};*OPC?").split(";")[-1] == "1"
+
+
 def values(reply: str) -> list[float]:
     return [float(x) for x in reply.split(",")]
 

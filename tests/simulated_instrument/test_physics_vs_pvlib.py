@@ -16,7 +16,7 @@ import pytest
 
 import simulated_instrument
 from simulated_instrument.cell_physics import CellParameters, at_conditions, current_at_voltage, operating_point
-from sim_helpers import CELL, SCENARIO, desoto
+from sim_helpers import CELL, SCENARIO, command, desoto
 
 pvsystem = pytest.importorskip("pvlib.pvsystem")
 
@@ -51,7 +51,7 @@ def test_vectorised_solver_matches_lambert_w(g, t_c):
 
 
 def _configure_conditions(bench, light, thermo, g, t_c):
-    thermo.write(f"SOUR:TEMP {t_c}")
+    command(thermo, f"SOUR:TEMP {t_c}")
     light.write(f"SOUR:IRR {g};:OUTP ON")
     assert light.query("*OPC?") == "1"
     bench.advance(900.0)                                  # 30 stage time constants
@@ -66,7 +66,7 @@ def test_cell_over_the_wire_matches_i_from_v(open_resource, g_set, t_set):
         light = open_resource(bench.addresses["light"])
         thermo = open_resource(bench.addresses["thermometer"])
         switch = open_resource(bench.addresses["switch"])
-        switch.write("ROUT:CLOS (@1)")
+        command(switch, "ROUT:CLOS (@1)")
         g, t_c = _configure_conditions(bench, light, thermo, g_set, t_set)
         assert g == pytest.approx(g_set, rel=1e-6)
         assert t_c == pytest.approx(t_set, abs=1e-3)

@@ -14,7 +14,7 @@ import pytest
 
 import simulated_instrument
 
-from sim_helpers import SCENARIO as SINGLE_DIODE, desoto, drain_errors, values
+from sim_helpers import SCENARIO as SINGLE_DIODE, command, desoto, drain_errors, values
 
 pvsystem = pytest.importorskip("pvlib.pvsystem")
 
@@ -100,7 +100,7 @@ def _lit(bench, open_resource, g=1000.0):
     switch = open_resource(bench.addresses["switch"])
     light.write(f"SOUR:IRR {g};:OUTP ON")
     assert light.query("*OPC?") == "1"
-    switch.write("ROUT:CLOS (@1)")
+    command(switch, "ROUT:CLOS (@1)")
     state = bench.state()
     return state["light"]["irradiance_w_m2"], state["stage"]["temperature_c"]
 
@@ -341,19 +341,19 @@ def test_switch_is_exclusive_and_open_circuit_without_pixel(bench, open_resource
     switch = open_resource(bench.addresses["switch"])
     smu = open_resource(bench.addresses["smu"])
     light = open_resource(bench.addresses["light"])
-    light.write("OUTP ON")
+    command(light, "OUTP ON")
     smu.write("SOUR:VOLT 0;:SENS:CURR:PROT 0.1;:OUTP ON")
     assert abs(values(smu.query("READ?"))[1]) < 1e-5          # nothing connected
-    switch.write("ROUT:CLOS (@2)")
+    command(switch, "ROUT:CLOS (@2)")
     assert values(smu.query("READ?"))[1] < -0.03              # a lit pixel at short circuit
-    switch.write("ROUT:CLOS (@4)")
+    command(switch, "ROUT:CLOS (@4)")
     assert switch.query("ROUT:CLOS? (@1:6)") == "0,0,0,1,0,0"
     switch.write("ROUT:CLOS (@1,2)")
     switch.write("ROUT:CLOS (@7)")
     assert [c for c, _ in drain_errors(switch)] == [-221, -222]
     switch.write("ROUT:OPEN (@4)")
     assert switch.query("ROUT:CLOS? (@4)") == "0"
-    switch.write("ROUT:CLOS (@5);:ROUT:OPEN:ALL")
+    command(switch, "ROUT:CLOS (@5);:ROUT:OPEN:ALL")
     assert bench.state()["switch"]["closed_pixel"] is None
 
 
@@ -362,11 +362,11 @@ def test_pilot_substrate_pixels_differ_as_described(bench, open_resource):
     switch = open_resource(bench.addresses["switch"])
     smu = open_resource(bench.addresses["smu"])
     light = open_resource(bench.addresses["light"])
-    light.write("OUTP ON")
+    command(light, "OUTP ON")
     smu.write("SENS:REM ON;:SENS:CURR:PROT 0.1;:SENS:CURR:NPLC 10;:OUTP ON")
 
     def current_at(pixel, v):
-        switch.write(f"ROUT:CLOS (@{pixel})")
+        command(switch, f"ROUT:CLOS (@{pixel})")
         smu.write(f"SOUR:VOLT {v}")
         return -values(smu.query("READ?"))[1]
 
@@ -383,11 +383,11 @@ def test_hysteretic_cell_forward_and_reverse_sweeps_differ(open_resource):
         smu = open_resource(bench.addresses["smu"])
         _lit(bench, open_resource)
         v = list(np.round(np.linspace(0.0, 1.1, 56), 4))
-        smu.write("SENS:REM ON;:SENS:CURR:PROT 0.1;:SOUR:VOLT 0;:OUTP ON")
+        command(smu, "SENS:REM ON;:SENS:CURR:PROT 0.1;:SOUR:VOLT 0;:OUTP ON")
         bench.advance(10)
         curves = {}
         for name, levels in (("forward", v), ("reverse", v[::-1])):
-            smu.write(f"SOUR:VOLT {levels[0]}")
+            command(smu, f"SOUR:VOLT {levels[0]}")
             bench.advance(10)                                   # 10 time constants at the start level
             _load_list(smu, levels, delay=0.01)
             smu.write("INIT")
