@@ -30,6 +30,13 @@ from tracer.protocol.schema import LIMIT_FIELDS
 ROLES = ("smu", "light", "thermometer", "switch")
 INSTABILITY_CLASSES = ("A+", "A", "B", "C")   # IEC 60904-9 temporal-instability classes
 
+_ROLE_SYNONYMS = {
+    name: f"the role is called {role!r}" for role, names in {
+        "light": ("lamp", "solar_simulator", "simulator", "light_source", "shutter"),
+        "smu": ("sourcemeter", "source_meter", "source-meter", "smu1"),
+        "thermometer": ("stage", "temperature", "thermo", "thermocouple"),
+        "switch": ("mux", "multiplexer", "relay", "pixel_switch", "matrix"),
+    }.items() for name in names}
 _VISA = re.compile(r"(TCPIP\d*|GPIB\d*|USB\d*|ASRL[^:\s]*|VXI\d*|PXI\d*|VICP\d*)::\S+",
                    re.IGNORECASE)
 _VISA_HELP = "a VISA resource string such as TCPIP0::127.0.0.1::5025::SOCKET"
@@ -223,7 +230,8 @@ def _instruments(ctx: Ctx, raw: Any, drivers: Collection[str] | None) -> Any:
     bad = False
     for role, body in raw.items():
         if role not in ROLES:
-            unknown_key(ctx, path + (role,), role, ROLES, what="instruments (roles)")
+            unknown_key(ctx, path + (role,), role, ROLES, what="instruments (roles)",
+                        extra_help=_ROLE_SYNONYMS)
             bad = True
             continue
         driver_allowed = ("one of " + ", ".join(sorted(drivers))) if drivers else \
