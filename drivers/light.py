@@ -1,15 +1,9 @@
 """Light source with shutter and reference cell (docs/scpi-dialect.md, "Light source")."""
 from __future__ import annotations
 
-import time
-
 from . import replies
 from .base import ScpiInstrument
-from .errors import NotSettledError
-
-_SETTLING_BIT = 1 << 1        # STATus:OPERation bit 1, SETTling (SCPI-99 ch. 20)
-_POLL_S = 0.05
-
+from .errors import LinkLostError, NotSettledError
 
 class ScpiLightSource(ScpiInstrument):
     """Shutter = ``OUTPut``; the lamp set-point is device-specific (``IRRADIANCE``).
@@ -33,20 +27,20 @@ class ScpiLightSource(ScpiInstrument):
         return self._ask(f"{self.IRRADIANCE}?", replies.real)
 
     def wait_settled(self, timeout_s: float) -> None:
-        """Poll the SETTling condition bit until clear; ``NotSettledError`` after
-        ``timeout_s``. Polling keeps every exchange short, so a slow lamp is never
-        mistaken for a lost link."""
-        self._number("timeout_s", timeout_s, minimum=0)
-        deadline = time.monotonic() + timeout_s
-        while True:
-            condition = self._ask("STAT:OPER:COND?", replies.integer)
-            if not condition & _SETTLING_BIT:
-                return
-            if time.monotonic() >= deadline:
-                raise NotSettledError(f"lamp still settling after {timeout_s:g} s",
-                                      address=self.address, identity=self.identity,
-                                      command="STAT:OPER:COND?")
-            time.sleep(_POLL_S)
+        """Wait for ``*OPC?`` (the dialect: answered once the lamp has settled), at most
+        ``timeout_s``. ``NotSettledError`` if no answer came in time: the lamp is still
+        settling (or the link is gone; the next call finds out). The late ``1`` is never
+        taken for another answer: the session resynchronises first."""
+        self._number("timeout_s", timeout_s, positive=True)
+        try:
+            done = self._session.query_values("*OPC?", (replies.boolean,), timeout_s=timeout_s)[0]
+        except LinkLostError as exc:
+            raise NotSettledError(f"no operation-complete within {timeout_s:g} s ({exc.detail})",
+                                  address=self.address, identity=self.identity,
+                                  command="*OPC?") from exc
+        if not done:
+            raise NotSettledError("operation-complete answered 0", address=self.address,
+                                  identity=self.identity, command="*OPC?")
 
     def reference_current(self) -> float:
         """Reference cell short-circuit current [A]."""

@@ -107,23 +107,29 @@ class ScpiSession:
             return self._exchange_line(command, command, timeout_s)
 
     def query_values(self, command: str, parsers: Sequence[Callable[[str], Any]], *,
-                     timeout_s: float | None = None) -> list[Any]:
-        """Send ``command;:SYST:ERR?`` and return one parsed value per response unit.
+                     timeout_s: float | None = None, check_errors: bool = True) -> list[Any]:
+        """Send a query and return one parsed value per response unit.
 
-        Raises ``InstrumentCommandError`` if the instrument queued any error,
-        ``ResponseError`` if the reply has the wrong number of units or a unit does not
-        parse, ``OverRangeError`` for an overflow marker where a reading was expected.
+        With ``check_errors`` (the default) the message is ``command;:SYST:ERR?`` and any
+        queued error raises ``InstrumentCommandError``. Without it, queued errors are left
+        for the next checked exchange: for state queries (output, interlock, protection)
+        that must answer even while an asynchronous event such as an interlock error sits
+        in the queue. ``ResponseError`` if the reply has the wrong number of units or a
+        unit does not parse, ``OverRangeError`` for an overflow marker where a reading
+        was expected.
         """
-        full = f"{command};:{ERROR_QUERY}"
+        message = f"{command};:{ERROR_QUERY}" if check_errors else command
         with self.lock:
-            reply = self._exchange_line(command, full, timeout_s)
+            reply = self._exchange_line(command, message, timeout_s)
             units = self._split(command, reply)
-            self._check_error_unit(command, reply, units[-1])
-            if len(units) - 1 != len(parsers):
-                self._garbled(command, reply, f"expected {len(parsers)} response unit(s) "
-                                              f"before the error entry, got {len(units) - 1}")
+            if check_errors:
+                self._check_error_unit(command, reply, units.pop())
+            if len(units) != len(parsers):
+                self._garbled(command, reply, f"expected {len(parsers)} response unit(s)"
+                                              f"{' before the error entry' if check_errors else ''}, "
+                                              f"got {len(units)}")
             return [self.parse_reply(command, reply, parse, unit)
-                    for parse, unit in zip(parsers, units[:-1])]
+                    for parse, unit in zip(parsers, units)]
 
     def query_binary_floats(self, command: str, *, big_endian: bool = True,
                             timeout_s: float | None = None) -> np.ndarray:

@@ -125,18 +125,21 @@ class ScpiSourceMeter(ScpiInstrument):
     def output(self, on: bool) -> None:
         self._session.configure(f"OUTP {'ON' if on else 'OFF'}")
 
+    # State queries answer even while an event (interlock, OVP) has an error queued: they
+    # do not read the error queue, which is left for the next command or make_safe.
     def output_is_on(self) -> bool:
         """Queried from the instrument, never cached."""
-        return self._ask("OUTP?", replies.boolean)
+        return self._ask_state("OUTP?", replies.boolean)
 
     def protection_tripped(self) -> bool:
         """OVP latched, or the output forced off by protection or the interlock."""
         forced_off, ovp = self._session.query_values(
-            "OUTP:PROT:TRIP?;:SOUR:VOLT:PROT:TRIP?", (replies.boolean, replies.boolean))
+            "OUTP:PROT:TRIP?;:SOUR:VOLT:PROT:TRIP?", (replies.boolean, replies.boolean),
+            check_errors=False)
         return forced_off or ovp
 
     def interlock_open(self) -> bool:
-        return self._ask(self.INTERLOCK_QUERY, replies.boolean)
+        return self._ask_state(self.INTERLOCK_QUERY, replies.boolean)
 
     # ------------------------------------------------------------------ list sweeps
     def load_list(self, levels: Sequence[float], *, settle_s: float) -> None:
@@ -246,6 +249,9 @@ class ScpiSourceMeter(ScpiInstrument):
             raise InstrumentError("output still on after switching it off at connect",
                                   address=session.address, identity=session.identity,
                                   command="OUTP OFF")
+
+    def _ask_state(self, command: str, parse) -> Any:
+        return self._session.query_values(command, (parse,), check_errors=False)[0]
 
     def _source_mode(self) -> str:
         if self._mode is None:

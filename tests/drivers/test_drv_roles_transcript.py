@@ -34,19 +34,24 @@ def test_light_refuses_setpoints_outside_its_range(rm, instrument):
     assert not any(m.startswith("SOUR:IRR") for m in instrument.log)
 
 
-def test_light_wait_settled_polls_the_settling_bit(rm, instrument):
+def test_light_wait_settled_uses_operation_complete(rm, instrument):
     light = ScpiLightSource(ADDRESS, resource_manager=rm, timeout_s=0.5)
-    instrument.answer("STAT:OPER:COND?", "2", "2", "0")
+    instrument.answer("*OPC?", "1")
     light.wait_settled(5.0)
-    assert _steps(instrument.log) == ["STAT:OPER:COND?;:SYST:ERR?"] * 3
+    assert instrument.log[-1] == "*OPC?;:SYST:ERR?"
+    assert rm.resources[-1].timeout == 500          # the session timeout is restored
 
 
 def test_light_not_settled_in_time_is_not_a_lost_link(rm, instrument):
     light = ScpiLightSource(ADDRESS, resource_manager=rm, timeout_s=0.5)
-    instrument.answer("STAT:OPER:COND?", "2")
+    instrument.answer("*OPC?", "1")
+    instrument.answer("OUTP?", "0")
+    instrument.stall()                   # the lamp takes longer than allowed
     with pytest.raises(NotSettledError) as caught:
-        light.wait_settled(0.12)
-    assert caught.value.link_lost is False and light.session.state == "ready"
+        light.wait_settled(0.1)
+    assert caught.value.link_lost is False and "0.1 s" in str(caught.value)
+    instrument.release()                 # the late "1" must not answer the next query
+    assert light.shutter_is_open() is False
 
 
 def test_light_reference_overflow(rm, instrument):

@@ -150,8 +150,19 @@ def test_output_state_and_protection_are_queried(smu, instrument):
     assert smu.protection_tripped() is True
     assert smu.interlock_open() is False
     assert _configure_steps(instrument.log) == [
-        "OUTP ON", "OUTP?;:SYST:ERR?", "OUTP:PROT:TRIP?;:SOUR:VOLT:PROT:TRIP?;:SYST:ERR?",
-        "OUTP:INT:TRIP?;:SYST:ERR?"]
+        "OUTP ON", "OUTP?", "OUTP:PROT:TRIP?;:SOUR:VOLT:PROT:TRIP?", "OUTP:INT:TRIP?"]
+
+
+def test_state_queries_answer_while_an_event_error_is_queued(smu, instrument):
+    """An interlock queues an error by itself; asking whether the interlock is open must
+    still answer, and leave the error for the next command to report."""
+    instrument.answer("OUTP:INT:TRIP?", "1")
+    instrument.answer("OUTP?", "0")
+    instrument.errors.append((301, "Interlock open;output forced off"))
+    assert smu.interlock_open() is True
+    assert smu.output_is_on() is False
+    with pytest.raises(InstrumentCommandError, match="301"):
+        smu.output(True)
 
 
 def test_output_on_refused_while_interlock_open(smu, instrument):
