@@ -332,8 +332,9 @@ def analyze_sweep(voltage_v, current_a, *, dark: bool, temperature_c, irradiance
     start = time.perf_counter()
     errors: list[str] = []
     try:
-        return _analyze(voltage_v, current_a, bool(dark), temperature_c, irradiance_w_m2,
-                        area_cm2, cells_in_series, settings, context, errors, start)
+        with np.errstate(all="ignore"):   # junk input overflows harmlessly; results say so
+            return _analyze(voltage_v, current_a, bool(dark), temperature_c, irradiance_w_m2,
+                            area_cm2, cells_in_series, settings, context, errors, start)
     except Exception as exc:  # last resort: the run must go on
         message = f"analysis failed unexpectedly: {type(exc).__name__}: {exc}"
         errors.append(message)
