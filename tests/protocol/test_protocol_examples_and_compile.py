@@ -211,3 +211,28 @@ def test_protocols_and_plans_are_frozen():
         protocol.name = "other"  # type: ignore[misc]
     with pytest.raises(TypeError):
         protocol.metadata["x"] = 1  # type: ignore[index]
+
+
+def test_the_readme_full_example_is_valid_and_names_every_key(bench):
+    import re
+
+    import yaml
+
+    from tracer.protocol.model import STEP_KINDS
+    from tracer.protocol.schema import (CHECK_FIELDS, LIMIT_FIELDS, REFERENCE_FIELDS,
+                                        SAMPLE_FIELDS, TOP_KEYS, TRANSLATION_FIELDS)
+    from conftest import ROOT
+    text = (ROOT / "protocols" / "README.md").read_text(encoding="utf-8")
+    block = re.search(r"## A full annotated example.*?```yaml\n(.*?)```", text, re.S).group(1)
+    compile_plan(load_protocol(block, bench=bench), bench=bench)
+    raw = yaml.safe_load(block)
+    assert set(raw) == set(TOP_KEYS)
+    assert set(raw["sample"]) == set(SAMPLE_FIELDS)
+    assert set(raw["limits"]) == set(LIMIT_FIELDS)
+    assert set(raw["checks"]) == set(CHECK_FIELDS)
+    assert set(raw["analysis"]["translation"]) == set(TRANSLATION_FIELDS)
+    assert set(raw["analysis"]["reference_cell"]) == set(REFERENCE_FIELDS)
+    assert {s["kind"] for s in raw["steps"]} == set(STEP_KINDS)
+    for key in ("voc_estimate_v", "compliance_v", "start_a", "level_v", "step_v", "start_v",
+                "acquisition", "repeats", "four_wire", "settle_timeout_s"):
+        assert key in block
