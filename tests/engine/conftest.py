@@ -13,7 +13,7 @@ from .fakes import FakeBench, make_fake_bench, reference_calibration
 # Bench hard limits for the fake bench: a lab bench for single cells (demo values).
 HARD = pl.Limits(voltage_v=10.0, current_a=0.5, power_w=2.0, reverse_voltage_v=3.0)
 # The limits most test plans ask for.
-LIMITS = pl.Limits(voltage_v=2.0, current_a=0.1, power_w=0.2, reverse_voltage_v=1.0)
+LIMITS = pl.Limits(voltage_v=2.0, current_a=0.1, power_w=0.15, reverse_voltage_v=1.0)
 SAMPLE = pl.Sample(sample_id="fake-cell-1", area_cm2=1.0)
 FAST = dict(poll_interval_s=0.001, conditions_interval_s=0.0, list_poll_interval_s=0.0005,
             analysis_timeout_s=10.0)

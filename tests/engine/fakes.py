@@ -351,6 +351,8 @@ class FakeSourceMeter(FakeInstrument):
         self.list_readings: list[FakeReading] = []
 
     def list_points_done(self) -> int:
+        """Like the driver: the appended 0 level is hidden; the last reading counts only
+        once that 0 level has been reached too."""
         self._enter("list_points_done")
         if self.list_running:
             for _ in range(self.list_rate):
@@ -363,7 +365,8 @@ class FakeSourceMeter(FakeInstrument):
                 self.list_done += 1
             if self.list_done >= len(self.list_levels):
                 self.list_running = False
-        return self.list_done
+        n = len(self.list_levels) - 1
+        return n if self.list_done > n else min(self.list_done, n - 1)
 
     def fetch_list(self, start: int, count: int) -> list[FakeReading]:
         self._enter("fetch_list")

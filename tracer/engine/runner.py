@@ -566,7 +566,7 @@ class Runner:
             history = [] if sweep is None else [self._light_value(r) for r in sweep.readings]
             history.append(self._light_value(reading))
             instability = iec_instability(history)
-            if math.isinf(instability) or math.isnan(instability):
+            if math.isinf(instability) or math.isnan(instability) or not history[-1] > 0:
                 raise Trip("light-failure", "the reference cell reads no light during a light step",
                            value=history[-1])
             if instability > checks.light_stability_rel:
@@ -725,7 +725,9 @@ class Runner:
                      uids: list[str], guard: PointGuard, common: dict[str, Any]
                      ) -> list[SweepRecord]:
         """One instrument-run list covering every direction of one repeat; its buffer is
-        fetched in chunks while it runs, so the points stream live. The per-point checks run
+        fetched in chunks while it runs, so the points stream live. (By the port's contract
+        ``list_points_done() == len(levels)`` means the list is over and the source is back
+        at the 0 level the driver appends.) The per-point checks run
         as readings arrive (within one poll of their measurement); between polls the
         instrument's own compliance and OVP, read back before the output went on, are the
         real-time protection."""
@@ -781,22 +783,7 @@ class Runner:
             if sweep is not None and time.monotonic() >= self.next_periodic:
                 self._periodic(sweep)
             self._publish_ready_analyses()
-        self._wait_list_idle()
         return records
-
-    def _wait_list_idle(self) -> None:
-        """Drivers end each list with a 0 V (0 A) level; let the instrument finish it so the
-        next list or configuration does not meet a running sweep."""
-        smu = self.bench.smu
-        deadline = time.monotonic() + self.watchdog_s
-        last = -1
-        while time.monotonic() < deadline:
-            done = int(self._io("smu.list_points_done", smu.list_points_done))
-            if done == last:
-                break
-            last = done
-            self._sleep(self.options.list_poll_interval_s)
-        self._io("smu.abort", smu.abort)
 
     def _probe_voc(self, *, nplc: float, four_wire: bool, light: bool,
                    compliance_v: float) -> float:
