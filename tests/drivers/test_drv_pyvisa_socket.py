@@ -153,3 +153,15 @@ def test_binary_block_with_newline_bytes_over_a_real_socket(server, visa):
     got = session.query_binary_floats("TRAC:DATA? 0,5")
     assert got.tobytes() == payload.astype(float).tobytes()
     session.close()
+
+
+def test_nagle_is_off_on_the_pinned_pyvisa_py(server, visa):
+    """The session reaches into pyvisa-py's private socket to set TCP_NODELAY. Measured in
+    tests/benchmarks/bench_drivers.py: a configure step (write, then SYST:ERR?) takes
+    ~0.5 ms with it and ~44 ms without (delayed ACK). If a pyvisa-py upgrade moves the
+    socket, this test says so instead of the bench silently slowing down 100-fold."""
+    session = ScpiSession(server.address, timeout_s=1.0, resource_manager=visa)
+    resource = session._resource
+    interface = resource.visalib.sessions[resource.session].interface
+    assert interface.getsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY) != 0
+    session.close()
