@@ -231,6 +231,13 @@ class ScpiSourceMeter(ScpiInstrument):
         self.last_safe_notes = tuple(notes)
         return False
 
+    def close(self) -> None:
+        """Make safe first (best effort, never raises; see ``last_safe_notes``), then
+        close the connection: closing a driver never leaves the output on by omission."""
+        if self._session.state != "closed":
+            self.make_safe()
+        super().close()
+
     def _queued_errors(self) -> list[str]:
         try:
             return [f'queued: {code},"{text}"' for code, text in self._session.read_error_queue()]

@@ -88,6 +88,13 @@ def test_connecting_leaves_the_smu_safe(bench, smu):
 
 
 # ---------------------------------------------------------------- source-meter
+def test_closing_the_driver_leaves_the_output_off(bench, smu, switch):
+    _ready_on_pixel(smu, switch)
+    smu.set_level(0.3)
+    smu.close()
+    _assert_safe(bench)
+
+
 def test_configure_and_read_back(bench, smu):
     smu.configure(source_mode="voltage", compliance=0.05, nplc=2, four_wire=True,
                   source_range=2.0, measure_range=0.1)

@@ -332,3 +332,11 @@ def test_reconnect_switches_the_output_off_and_forgets_the_cached_mode(smu, inst
     instrument.answer("SOUR:FUNC:MODE?", "CURR")
     smu.set_level(0.01)
     assert instrument.log[-3:] == ["SOUR:FUNC:MODE?;:SYST:ERR?", "SOUR:CURR 0.01", "SYST:ERR?"]
+
+
+def test_close_makes_safe_first(smu, instrument, rm):
+    smu.close()
+    assert instrument.log == [*SAFE, "OUTP?", "SYST:ERR?"]
+    assert rm.resources[-1].closed
+    smu.close()                          # twice is harmless and sends nothing
+    assert len(instrument.log) == len(SAFE) + 2
