@@ -103,6 +103,7 @@ class ScpiSession:
 
     def query(self, command: str, *, timeout_s: float | None = None) -> str:
         """Send a query and return its raw reply line (terminator removed), unchecked."""
+        self._check_timeout(timeout_s)
         with self.lock:
             return self._exchange_line(command, command, timeout_s)
 
@@ -118,6 +119,7 @@ class ScpiSession:
         unit does not parse, ``OverRangeError`` for an overflow marker where a reading
         was expected.
         """
+        self._check_timeout(timeout_s)
         message = f"{command};:{ERROR_QUERY}" if check_errors else command
         with self.lock:
             reply = self._exchange_line(command, message, timeout_s)
@@ -139,6 +141,7 @@ class ScpiSession:
         The block is read by its declared length, so a 0x0A byte inside the data cannot
         cut it short; what follows must be ``;<error entry>`` and the line terminator.
         """
+        self._check_timeout(timeout_s)
         full = f"{command};:{ERROR_QUERY}"
         with self.lock:
             self._ensure_ready(command)
@@ -295,11 +298,15 @@ class ScpiSession:
             self._state = "broken"
             raise self._link_lost(command, f"write failed ({exc})") from exc
 
+    @staticmethod
+    def _check_timeout(timeout_s: float | None) -> None:
+        if timeout_s is not None and not (isinstance(timeout_s, (int, float))
+                                          and math.isfinite(timeout_s) and timeout_s > 0):
+            raise ValueError(f"timeout_s must be finite and positive, got {timeout_s!r}")
+
     def _with_timeout(self, timeout_s: float | None, read: Callable[[], bytes]) -> bytes:
         if timeout_s is None:
             return read()
-        if not (math.isfinite(timeout_s) and timeout_s > 0):
-            raise ValueError(f"timeout_s must be finite and positive, got {timeout_s!r}")
         previous = self._resource.timeout
         self._resource.timeout = int(timeout_s * 1000)
         try:

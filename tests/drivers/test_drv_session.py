@@ -252,3 +252,11 @@ def test_malformed_binary_block_raises_response_error(session, instrument, reply
     with pytest.raises(ResponseError):
         session.query_binary_floats("TRAC:DATA? 0,1")
     assert session.state == "dirty"
+
+
+def test_bad_per_call_timeout_is_refused_before_anything_is_sent(session, instrument):
+    marker = len(instrument.log)
+    for bad in (0, -1, float("nan"), float("inf")):
+        with pytest.raises(ValueError):
+            session.query("OUTP?", timeout_s=bad)
+    assert instrument.log[marker:] == [] and session.state == "ready"
