@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from pathlib import Path
 from typing import TextIO
 
 EXIT_OK = 0
@@ -52,12 +53,12 @@ def _check(args: argparse.Namespace, out: TextIO, err: TextIO) -> int:
     bench = None
     if args.bench is not None:
         try:
-            bench = load_bench_profile(args.bench)
+            bench = load_bench_profile(Path(args.bench), source_name=args.bench)
         except BenchProfileError as exc:
             _print_problems(exc, err)
             return EXIT_INVALID
     try:
-        protocol = load_protocol(args.protocol, bench=bench)
+        protocol = load_protocol(Path(args.protocol), bench=bench, source_name=args.protocol)
         overrides = {"id": args.sample} if args.sample else None
         plan = compile_plan(protocol, bench=bench, sample_overrides=overrides)
     except ProtocolError as exc:

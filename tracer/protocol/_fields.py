@@ -70,20 +70,19 @@ class Number(Kind):
 
     @property
     def allowed(self) -> str:
-        what = "a whole number" if self.integer else "a number"
         lo, hi = self.lo, self.hi
-        if lo is not None and hi is not None and not self.lo_open and not self.hi_open:
-            text = f"{fmt_num(lo)} … {fmt_num(hi)}"
+        if lo is not None and hi is not None:
+            if not self.lo_open and not self.hi_open:
+                text = f"{fmt_num(lo)} … {fmt_num(hi)}"
+            else:
+                text = (f"{fmt_num(lo)} {'<' if self.lo_open else '≤'} x "
+                        f"{'<' if self.hi_open else '≤'} {fmt_num(hi)}")
+        elif lo is not None:
+            text = f"{'>' if self.lo_open else '≥'} {fmt_num(lo)}"
+        elif hi is not None:
+            text = f"{'<' if self.hi_open else '≤'} {fmt_num(hi)}"
         else:
-            parts = []
-            if lo is not None:
-                parts.append(f"{'>' if self.lo_open else '≥'} {fmt_num(lo)}")
-            if hi is not None:
-                parts.append(f"{'<' if self.hi_open else '≤'} {fmt_num(hi)}")
-            text = " and ".join(parts) if parts else what
-            if parts and lo is not None and hi is not None:
-                text = f"{fmt_num(lo)} {'<' if self.lo_open else '≤'} x " \
-                       f"{'<' if self.hi_open else '≤'} {fmt_num(hi)}"
+            text = "a whole number" if self.integer else "a number"
         return text + (f" {self.unit}" if self.unit else "")
 
     def check(self, ctx: Ctx, path: tuple, value: Any) -> Any:

@@ -114,8 +114,9 @@ def source_text(source: Any, *, source_name: str | None = None,
             return None, label, [_whole(label, "no such file", "an existing YAML file")]
         except IsADirectoryError:
             return None, label, [_whole(label, "is a directory, not a file", "a YAML file")]
-        except OSError as exc:
-            return None, label, [_whole(label, f"cannot be read: {exc.strerror or exc}",
+        except (OSError, ValueError) as exc:
+            reason = getattr(exc, "strerror", None) or str(exc)
+            return None, label, [_whole(label, f"cannot be read: {reason}",
                                         "a readable YAML file")]
     elif isinstance(source, str):
         text = source

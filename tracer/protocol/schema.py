@@ -235,7 +235,7 @@ def _read_checks(ctx: Ctx, raw: Any, bench: Any) -> Any:
 
 
 # --------------------------------------------------------------------------- steps
-def _common_names(kind: str) -> dict[str, Field]:
+def _common_names() -> dict[str, Field]:
     return {"kind": Field(Choice(STEP_KINDS), required=True),
             "name": Field(_name_kind())}
 
@@ -319,7 +319,7 @@ class _StepReader:
         u = "v" if source == "voltage" else "a"
         comp_key = "compliance_a" if u == "v" else "compliance_v"
         wrong_comp = "compliance_v" if u == "v" else "compliance_a"
-        fields = _common_names("sweep") | {
+        fields = _common_names() | {
             "light": Field(Bool(), required=True),
             "source": Field(Choice(("voltage", "current")), default="voltage"),
             "range": Field(Custom(lambda c, p, x: self._range(c, p, x, u),
@@ -482,7 +482,7 @@ class _StepReader:
         mode = raw.get("mode")
         comp_key = "compliance_v" if mode == "voc" else "compliance_a"
         wrong = "compliance_a" if comp_key == "compliance_v" else "compliance_v"
-        fields = _common_names("hold") | {
+        fields = _common_names() | {
             "light": Field(Bool(), required=True),
             "mode": Field(Choice(HOLD_MODES), required=True),
             "duration_s": DURATION,
@@ -524,7 +524,7 @@ class _StepReader:
 
     # ------------------------------------------------------------------ mpp
     def mpp(self, path: tuple, raw: dict) -> Any:
-        fields = _common_names("mpp") | {
+        fields = _common_names() | {
             "duration_s": DURATION,
             "interval_s": INTERVAL,
             "step_v": Field(Number(0, 1, lo_open=True, unit="V"), default=0.005),
