@@ -18,7 +18,7 @@ import difflib
 import importlib
 import re
 from dataclasses import dataclass, field
-from typing import Any, Collection, Iterable, Mapping
+from typing import Any, Collection, Iterable
 
 from tracer.plan import Limits
 from tracer.protocol._fields import (INVALID, Choice, Ctx, Custom, Field, Number, Text, describe,
