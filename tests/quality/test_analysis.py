@@ -151,6 +151,7 @@ def test_never_raises_on_wrong_settings_types():
     assert any("settings" in e for e in r.errors)
 
 
+@pytest.mark.filterwarnings("ignore:.*poorly conditioned")   # junk makes numpy's polyfit warn
 @hyp_settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(n=st.integers(0, 60),
        data=st.data(),
