@@ -23,15 +23,19 @@ from scipy import ndimage
 
 #: Ideality factors searched (per diode), geometric grid.
 IDEALITY_RANGE = (0.5, 5.0)
-GRID_SIZE_SINGLE = (16, 12)      # (ideality values, series-resistance values)
-GRID_SIZE_DOUBLE = (14, 12)
+GRID_SIZE_SINGLE = (16, 16)      # (ideality values, series-resistance values)
+GRID_SIZE_DOUBLE = (11, 20)
 #: Smallest nonzero series resistance on the grid, as a fraction of the largest.
-RS_GRID_DYNAMIC_RANGE = 1e-3
+RS_GRID_DYNAMIC_RANGE = 3e-3
 #: Zoomed refinement: points per dimension, levels, shrink factor per level.
-ZOOM_POINTS = {1: 7, 2: 5}
-ZOOM_LEVELS = 5
-ZOOM_MAX_STEPS = 15
+ZOOM_POINTS = {1: 5, 2: 5}
+ZOOM_LEVELS = 2
+ZOOM_MAX_STEPS = 8
 ZOOM_SHRINK = 3.0
+#: A diode carrying less than this fraction of the largest current is "absent".
+DEGENERATE_FRACTION = 1e-6
+#: The customary double-diode idealities, always tried as a start.
+STANDARD_IDEALITIES = (1.0, 2.0)
 _RIDGE = 1e-13
 
 
@@ -47,36 +51,71 @@ class LinearSolution:
     score: float  # first-order estimate of the weighted sum of squared current residuals
 
 
-def _batched_nnls(m: np.ndarray, b: np.ndarray, yy: float):
+def _supports(p: int, required: tuple[int, ...], diodes: tuple[int, ...]):
+    """Proper subsets of range(p) holding every ``required`` index and a diode."""
+    out = []
+    for size in range(1, p):
+        for support in itertools.combinations(range(p), size):
+            if set(required) <= set(support) and set(diodes) & set(support):
+                out.append(support)
+    return out
+
+
+def _solve_spd(m: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Solve a batch of small symmetric positive-definite systems m x = b.
+
+    Gaussian elimination without pivoting (safe for SPD matrices), vectorised over the
+    batch: for p <= 5 this is far cheaper than one LAPACK call per matrix.
+    """
+    a = np.array(m, dtype=float)
+    x = np.array(b, dtype=float)
+    p = x.shape[1]
+    for k in range(p):
+        pivot = a[:, k, k]
+        pivot = np.where(pivot > 0, pivot, np.inf)  # a null pivot gives a zero unknown
+        for i in range(k + 1, p):
+            f = a[:, i, k] / pivot
+            a[:, i, k:] -= f[:, None] * a[:, k, k:]
+            x[:, i] -= f * x[:, k]
+        a[:, k, k] = pivot
+    for k in range(p - 1, -1, -1):
+        x[:, k] = (x[:, k] - np.einsum("bj,bj->b", a[:, k, k + 1:], x[:, k + 1:])) / a[:, k, k]
+    return x
+
+
+def _batched_nnls(m: np.ndarray, b: np.ndarray, yy: np.ndarray, supports):
     """Minimise yy - 2 c.b + c.M.c over c >= 0 for a batch of small systems.
 
-    ``m`` (B, p, p) symmetric positive semi-definite, ``b`` (B, p). Returns
-    (c (B, p), ssr (B,)). Exact: the unconstrained solution where it is feasible,
-    otherwise every support set is solved and the best feasible one kept.
+    ``m`` (B, p, p) symmetric positive semi-definite, ``b`` (B, p), ``yy`` (B,). Returns
+    (c (B, p), ssr (B,)). The unconstrained solution where it is feasible; otherwise
+    each support set in ``supports`` is solved and the best feasible one kept. With all
+    proper subsets this is the exact nonnegative solution; the reduced problem leaves
+    out supports that drop the photocurrent of a light curve or every diode, which
+    describe no I-V curve (such a trial then scores as "no fit").
     """
     batch, p = b.shape
     eye = np.eye(p)
     ridge = _RIDGE * np.trace(m, axis1=1, axis2=2)[:, None, None] * eye
-    c = np.linalg.solve(m + ridge, b[..., None])[..., 0]
+    c = _solve_spd(m + ridge, b)
     ssr = yy - 2.0 * np.einsum("bi,bi->b", c, b) + np.einsum("bi,bij,bj->b", c, m, c)
+    ssr = np.array(ssr, dtype=float)
     todo = np.flatnonzero(~(np.all(c >= 0.0, axis=1) & np.isfinite(ssr)))
     if todo.size == 0:
         return c, ssr
-    mt, bt, rt = m[todo], b[todo], ridge[todo]
+    mt, bt, rt, yt = m[todo], b[todo], ridge[todo], yy[todo]
     best_c = np.zeros((todo.size, p))
-    best_ssr = np.full(todo.size, yy)  # empty support
-    for size in range(1, p):
-        for support in itertools.combinations(range(p), size):
-            mask = np.zeros(p, dtype=bool)
-            mask[list(support)] = True
-            outer = mask[:, None] & mask[None, :]
-            ms = np.where(outer, mt + rt, eye)
-            bs = np.where(mask, bt, 0.0)
-            cs = np.where(mask, np.linalg.solve(ms, bs[..., None])[..., 0], 0.0)
-            ss = yy - 2.0 * np.einsum("bi,bi->b", cs, bt) + np.einsum("bi,bij,bj->b", cs, mt, cs)
-            ok = np.all(cs[:, mask] >= 0.0, axis=1) & np.isfinite(ss) & (ss < best_ssr)
-            best_c[ok] = cs[ok]
-            best_ssr[ok] = ss[ok]
+    best_ssr = np.array(yt, dtype=float)  # empty support
+    for support in supports:
+        mask = np.zeros(p, dtype=bool)
+        mask[list(support)] = True
+        outer = mask[:, None] & mask[None, :]
+        ms = np.where(outer, mt + rt, eye)
+        bs = np.where(mask, bt, 0.0)
+        cs = np.where(mask, _solve_spd(ms, bs), 0.0)
+        ss = yt - 2.0 * np.einsum("bi,bi->b", cs, bt) + np.einsum("bi,bij,bj->b", cs, mt, cs)
+        ok = np.all(cs[:, mask] >= 0.0, axis=1) & np.isfinite(ss) & (ss < best_ssr)
+        best_c[ok] = cs[ok]
+        best_ssr[ok] = ss[ok]
     c[todo] = best_c
     ssr[todo] = best_ssr
     return c, ssr
@@ -91,63 +130,111 @@ class _Reduced:
         self.base_sw = weights**2
         self.n_diodes = n_diodes
         self.dark = dark
+        off = 0 if dark else 1
+        self.p = off + n_diodes + 1
+        self.supports = _supports(self.p, () if dark else (0,),
+                                  tuple(range(off, off + n_diodes)))
 
-    def solve(self, a, rs, sw=None, exp_cols=None):
-        """Solve the batch of trials ``a`` (B, m) [V], ``rs`` (B,) [ohm].
-
-        Returns a dict of arrays: ``iph`` (B,), ``i0`` (B, m), ``g`` (B,), ``ssr`` (B,).
-        ``exp_cols`` optionally gives the normalised diode columns and their log scales
-        (precomputed for a tensor grid).
-        """
-        sw = self.base_sw if sw is None else sw
-        v, y = self.v, self.y
-        batch = rs.size
-        vd = v[None, :] + y[None, :] * rs[:, None]                       # (B, N)
-        vd_scale = np.max(np.abs(vd), axis=1)
-        if exp_cols is None:
-            x = vd[:, None, :] / a[:, :, None]                           # (B, m, N)
-            log_scale = np.maximum(x.max(axis=2), 0.0)                   # (B, m)
-            e = np.exp(x - log_scale[..., None]) - np.exp(-log_scale)[..., None]
-        else:
-            e, log_scale = exp_cols
-        vdn = vd / vd_scale[:, None]
-        # Normal equations of the columns [1], -e_1..-e_m, -vdn, built from dot products.
-        m_d = self.n_diodes
+    def _finish(self, m, b, yy, log_scale, vd_scale):
+        yy = np.broadcast_to(yy, (b.shape[0],))
+        coef, ssr = _batched_nnls(m, b, yy, self.supports)
         off = 0 if self.dark else 1
-        p = off + m_d + 1
-        ew = e * sw
-        swy = sw * y
-        vdn_w = vdn * sw
-        m = np.empty((batch, p, p))
-        b = np.empty((batch, p))
-        m[:, off:off + m_d, off:off + m_d] = np.einsum("bin,bjn->bij", ew, e)
-        m[:, off:off + m_d, -1] = np.einsum("bin,bn->bi", ew, vdn)
-        m[:, -1, off:off + m_d] = m[:, off:off + m_d, -1]
-        m[:, -1, -1] = np.einsum("bn,bn->b", vdn_w, vdn)
-        b[:, off:off + m_d] = -(e @ swy)
-        b[:, -1] = -(vdn @ swy)
-        if not self.dark:
-            m[:, 0, 0] = sw.sum()
-            m[:, 0, 1:1 + m_d] = -ew.sum(axis=2)
-            m[:, 1:1 + m_d, 0] = m[:, 0, 1:1 + m_d]
-            m[:, 0, -1] = -vdn_w.sum(axis=1)
-            m[:, -1, 0] = m[:, 0, -1]
-            b[:, 0] = swy.sum()
-        coef, ssr = _batched_nnls(m, b, float(sw @ (y * y)))
         return {
-            "iph": np.zeros(batch) if self.dark else coef[:, 0],
+            "iph": np.zeros(ssr.size) if self.dark else coef[:, 0],
             "i0": coef[:, off:off + self.n_diodes] * np.exp(-log_scale),
             "g": coef[:, -1] / vd_scale,
             "ssr": ssr,
+            # each diode's current at the trial's largest |Vd| [A]
+            "diode_peak": np.abs(coef[:, off:off + self.n_diodes]),
         }
 
-    def first_order_weights(self, a, rs, i0, g):
-        """1 / (1 + Rs*dD/dVd)^2 at the measured points for one trial (squared weights)."""
+    def _assemble(self, batch, see, sed, s1e, be, sdd, s1d, bd, s11, b1):
+        """Normal equations of the columns [1], -e_1..-e_m, -vdn from their moments."""
+        m_d = self.n_diodes
+        off = 0 if self.dark else 1
+        m = np.empty((batch, self.p, self.p))
+        b = np.empty((batch, self.p))
+        m[:, off:off + m_d, off:off + m_d] = see
+        m[:, off:off + m_d, -1] = sed
+        m[:, -1, off:off + m_d] = sed
+        m[:, -1, -1] = sdd
+        b[:, off:off + m_d] = -be
+        b[:, -1] = -bd
+        if not self.dark:
+            m[:, 0, 0] = s11
+            m[:, 0, 1:1 + m_d] = -s1e
+            m[:, 1:1 + m_d, 0] = -s1e
+            m[:, 0, -1] = -s1d
+            m[:, -1, 0] = -s1d
+            b[:, 0] = b1
+        return m, b
+
+    def solve(self, a, rs, sw=None):
+        """Solve the batch of trials ``a`` (B, m) [V], ``rs`` (B,) [ohm].
+
+        Returns a dict of arrays: ``iph`` (B,), ``i0`` (B, m), ``g`` (B,), ``ssr`` (B,).
+        """
+        sw = self.base_sw if sw is None else sw
+        v, y = self.v, self.y
+        vd = v[None, :] + y[None, :] * rs[:, None]                       # (B, N)
+        vd_scale = np.max(np.abs(vd), axis=1)
+        x = vd[:, None, :] / a[:, :, None]                               # (B, m, N)
+        log_scale = np.maximum(x.max(axis=2), 0.0)                       # (B, m)
+        e = np.exp(x - log_scale[..., None]) - np.exp(-log_scale)[..., None]
+        vdn = vd / vd_scale[:, None]
+        ew = e * sw
+        swy = sw * y
+        vdn_w = vdn * sw
+        m, b = self._assemble(
+            rs.size, ew @ e.transpose(0, 2, 1), np.einsum("bin,bn->bi", ew, vdn),
+            ew.sum(axis=2), e @ swy, np.einsum("bn,bn->b", vdn_w, vdn), vdn_w.sum(axis=1),
+            vdn @ swy, sw.sum(), swy.sum())
+        return self._finish(m, b, swy @ y, log_scale, vd_scale)
+
+    def solve_tensor(self, a_grid, rs_grid, r_idx, diode_idx, sw_r=None):
+        """Solve the trials (a_grid[diode_idx[k]], rs_grid[r_idx]) of a tensor grid, with
+        the exponentials and their dot products computed once per (Rs, a) pair.
+        ``sw_r`` (R, N) gives squared row weights per series resistance."""
+        v, y = self.v, self.y
+        sw = np.broadcast_to(self.base_sw if sw_r is None else sw_r, (rs_grid.size, v.size))
+        vd = v[None, :] + y[None, :] * rs_grid[:, None]                  # (R, N)
+        vd_scale = np.max(np.abs(vd), axis=1)
+        vdn = vd / vd_scale[:, None]
+        x = vd[:, None, :] / a_grid[None, :, None]                       # (R, A, N)
+        log_scale = np.maximum(x.max(axis=2), 0.0)                       # (R, A)
+        e = np.exp(x - log_scale[..., None]) - np.exp(-log_scale)[..., None]
+        ew = e * sw[:, None, :]
+        swy = sw * y                                                     # (R, N)
+        vdn_w = vdn * sw
+        see_t = ew @ e.transpose(0, 2, 1)                                # (R, A, A)
+        sed_t = (ew @ vdn[:, :, None])[..., 0]                           # (R, A)
+        s1e_t = ew.sum(axis=2)
+        be_t = (e @ swy[:, :, None])[..., 0]
+        sdd_t = np.einsum("rn,rn->r", vdn_w, vdn)
+        s1d_t = vdn_w.sum(axis=1)
+        bd_t = np.einsum("rn,rn->r", vdn, swy)
+        m_d = self.n_diodes
+        see = np.empty((r_idx.size, m_d, m_d))
+        for i in range(m_d):
+            for j in range(m_d):
+                see[:, i, j] = see_t[r_idx, diode_idx[i], diode_idx[j]]
+        stack = lambda t: np.stack([t[r_idx, d] for d in diode_idx], axis=1)  # noqa: E731
+        s11, b1, yy = sw.sum(axis=1), swy.sum(axis=1), swy @ y
+        m, b = self._assemble(r_idx.size, see, stack(sed_t), stack(s1e_t), stack(be_t),
+                              sdd_t[r_idx], s1d_t[r_idx], bd_t[r_idx], s11[r_idx], b1[r_idx])
+        return self._finish(m, b, yy[r_idx], stack(log_scale), vd_scale[r_idx])
+
+    def conductance(self, a, rs, i0, g):
+        """dD/dVd [S] at the measured points for one trial (D: diode plus shunt current)."""
         vd = self.v + self.y * rs
         conductance = np.full_like(vd, g)
         for ak, i0k in zip(a, i0):
             conductance += i0k * np.exp(np.minimum(vd / ak, 700.0)) / ak
-        return 1.0 / (1.0 + rs * conductance) ** 2
+        return conductance
+
+    def first_order_weights(self, a, rs, i0, g):
+        """1 / (1 + Rs*dD/dVd)^2 at the measured points for one trial (squared weights)."""
+        return 1.0 / (1.0 + rs * self.conductance(a, rs, i0, g)) ** 2
 
     def score(self, a, rs, iph, i0, g):
         """First-order estimate of the weighted SSR of the current for one trial."""
@@ -167,10 +254,6 @@ def _coarse_grid(red: _Reduced, ns_vt_v, rs_max_ohm):
     rs_grid = np.concatenate(
         ([0.0], np.geomspace(RS_GRID_DYNAMIC_RANGE * rs_max_ohm, rs_max_ohm, n_rs - 1)))
     n_r, n_a = rs_grid.size, a_grid.size
-    vd = red.v[None, :] + red.y[None, :] * rs_grid[:, None]              # (R, N)
-    x = vd[:, None, :] / a_grid[None, :, None]                           # (R, A, N)
-    log_scale = np.maximum(x.max(axis=2), 0.0)                           # (R, A)
-    e = np.exp(x - log_scale[..., None]) - np.exp(-log_scale)[..., None]
     if n_diodes == 1:
         idx_r, idx_a = (g.ravel() for g in np.meshgrid(np.arange(n_r), np.arange(n_a),
                                                        indexing="ij"))
@@ -181,14 +264,25 @@ def _coarse_grid(red: _Reduced, ns_vt_v, rs_max_ohm):
         idx_r = np.repeat(np.arange(n_r), ia.size)
         diode_idx = [np.tile(ia, n_r), np.tile(ib, n_r)]
         shape = (n_r, n_a, n_a)
-    e_cols = np.stack([e[idx_r, d] for d in diode_idx], axis=1)          # (B, m, N)
-    ls = np.stack([log_scale[idx_r, d] for d in diode_idx], axis=1)      # (B, m)
     a = np.stack([a_grid[d] for d in diode_idx], axis=1)
     rs = rs_grid[idx_r]
-    sol = red.solve(a, rs, exp_cols=(e_cols, ls))
+    sol = red.solve_tensor(a_grid, rs_grid, idx_r, diode_idx)
+    # second pass: rows weighted by 1/(1 + Rs*dD/dVd), dD/dVd taken from the best trial
+    k = int(np.argmin(sol["ssr"]))
+    conductance = red.conductance(a[k], rs[k], sol["i0"][k], sol["g"][k])
+    sw_r = red.base_sw / (1.0 + rs_grid[:, None] * conductance[None, :]) ** 2
+    sol = red.solve_tensor(a_grid, rs_grid, idx_r, diode_idx, sw_r=sw_r)
 
+    values = sol["ssr"].copy()
+    if n_diodes == 2:
+        # trials where one diode carries no current are single-diode trials in disguise;
+        # they form a flat floor that would hide the two-diode basins
+        degenerate = np.any(sol["diode_peak"] < DEGENERATE_FRACTION * np.max(np.abs(red.y)),
+                            axis=1)
+        if np.any(~degenerate & np.isfinite(values)):
+            values[degenerate] = np.inf
     grid = np.full(shape, np.inf)
-    grid[(idx_r, *diode_idx)] = sol["ssr"]
+    grid[(idx_r, *diode_idx)] = values
     finite = np.isfinite(grid)
     filled = np.where(finite, grid, np.max(grid[finite]) * 10 + 1)
     is_min = (ndimage.minimum_filter(filled, size=3, mode="nearest") >= filled) & finite
@@ -197,47 +291,65 @@ def _coarse_grid(red: _Reduced, ns_vt_v, rs_max_ohm):
     minima = lookup[is_min]
     minima = minima[minima >= 0]
     minima = minima[np.argsort(sol["ssr"][minima], kind="stable")]
+    if n_diodes == 2:
+        # the customary two-diode start, n1 = 1 and n2 = 2 (best Rs on the grid there)
+        ia = int(np.argmin(np.abs(np.log(a_grid / (STANDARD_IDEALITIES[0] * ns_vt_v)))))
+        ib = int(np.argmin(np.abs(np.log(a_grid / (STANDARD_IDEALITIES[1] * ns_vt_v)))))
+        column = lookup[:, ia, ib]
+        column = column[column >= 0]
+        if column.size:
+            standard = int(column[np.argmin(sol["ssr"][column])])
+            minima = np.append(minima[minima != standard], standard)
 
     log_step = np.log(a_grid[1] / a_grid[0])
     rs_step = np.empty(n_r)
     rs_step[0] = rs_grid[1]
     rs_step[1:-1] = 0.5 * (rs_grid[2:] - rs_grid[:-2])
     rs_step[-1] = rs_grid[-1] - rs_grid[-2]
-    return a, rs, sol, minima, log_step, rs_step[idx_r]
+    return a, rs, sol, minima, log_step, rs_step[idx_r], standard if n_diodes == 2 else None
 
 
-def _refine(red: _Reduced, a0, rs0, log_step, rs_step):
-    """Zoomed grids around one start; returns the best trial (a, rs, solution dict)."""
+def _refine(red: _Reduced, a0, rs0, log_step, rs_step, start):
+    """Zoomed grids around one start; returns the best trial (a, rs, solution dict).
+
+    Each zoom is a small tensor grid (ZOOM_POINTS values of each a_k and of Rs) around
+    the current best; the box shrinks around an interior minimum and moves, unshrunk,
+    when the minimum lies on its edge.
+    """
     m = red.n_diodes
     pts = ZOOM_POINTS[m]
     offsets = np.linspace(-1.0, 1.0, pts)
-    mesh = np.stack([g.ravel() for g in np.meshgrid(*([offsets] * (m + 1)), indexing="ij")],
-                    axis=1)                                              # (K, m+1)
     a_c, rs_c = np.array(a0, dtype=float), float(rs0)
     la_step, r_step = log_step, rs_step
-    sw = red.base_sw
+    weights = red.first_order_weights(a_c, rs_c, start["i0"], start["g"])
+    # trial index sets of the tensor grid: a_k takes values k*pts ... k*pts + pts - 1
+    mesh = np.meshgrid(*([np.arange(pts)] * (m + 1)), indexing="ij")
+    r_idx = mesh[0].ravel()
+    diode_idx = [mesh[k + 1].ravel() + k * pts for k in range(m)]
     best = None
     shrinks = 0
     for _ in range(ZOOM_MAX_STEPS):
         if shrinks >= ZOOM_LEVELS:
             break
-        a = a_c[None, :] * np.exp(mesh[:, :m] * la_step)
-        rs = np.maximum(rs_c + mesh[:, m] * r_step, 0.0)
+        a_values = np.concatenate([a_c[k] * np.exp(offsets * la_step) for k in range(m)])
+        rs_values = np.maximum(rs_c + offsets * r_step, 0.0)
+        sol = red.solve_tensor(a_values, rs_values, r_idx, diode_idx,
+                               sw_r=red.base_sw * weights)
+        ssr = sol["ssr"]
         if m == 2:
-            keep = a[:, 0] <= a[:, 1]
-            a, rs = a[keep], rs[keep]
-        sol = red.solve(a, rs, sw=sw)
-        k = int(np.argmin(sol["ssr"]))
-        best = (a[k].copy(), float(rs[k]), {key: val[k] for key, val in sol.items()})
+            ssr = np.where(a_values[diode_idx[0]] <= a_values[diode_idx[1]], ssr, np.inf)
+        k = int(np.argmin(ssr))
+        a_best = np.array([a_values[d[k]] for d in diode_idx])
+        best = (a_best, float(rs_values[r_idx[k]]), {key: val[k] for key, val in sol.items()})
         # shrink the box around an interior minimum; move it (same size) otherwise
-        on_edge = np.any(np.abs(np.log(best[0] / a_c)) >= 0.999 * la_step) or (
-            abs(best[1] - rs_c) >= 0.999 * r_step and best[1] > 0.0)
+        on_edge = any(d[k] % pts in (0, pts - 1) for d in diode_idx) or (
+            r_idx[k] in (0, pts - 1) and best[1] > 0.0)
         a_c, rs_c = best[0], best[1]
         if not on_edge:
             la_step /= ZOOM_SHRINK
             r_step /= ZOOM_SHRINK
             shrinks += 1
-        sw = red.base_sw * red.first_order_weights(a_c, rs_c, best[2]["i0"], best[2]["g"])
+        weights = red.first_order_weights(a_c, rs_c, best[2]["i0"], best[2]["g"])
     return best
 
 
@@ -252,14 +364,24 @@ def grid_search(voltage_v, current_a, weights, ns_vt_v, *, n_diodes, dark, rs_ma
     """
     red = _Reduced(np.asarray(voltage_v, dtype=float), np.asarray(current_a, dtype=float),
                    np.asarray(weights, dtype=float), n_diodes, dark)
-    a, rs, sol, minima, log_step, rs_step = _coarse_grid(red, ns_vt_v, rs_max_ohm)
+    a, rs, sol, minima, log_step, rs_step, standard = _coarse_grid(red, ns_vt_v, rs_max_ohm)
     floor = sol["ssr"][minima[0]]
     chosen = [k for k in minima[:keep]
               if k == minima[0] or sol["ssr"][k] <= competitive_ratio * max(floor, 0.0)]
+    if standard is not None and standard not in chosen:
+        chosen.append(standard)
     out = []
     for k in chosen:
-        a_k, rs_k, s = _refine(red, a[k], rs[k], log_step, rs_step[k])
+        if ZOOM_LEVELS:
+            a_k, rs_k, s = _refine(red, a[k], rs[k], log_step, rs_step[k],
+                                   {key: val[k] for key, val in sol.items()})
+        else:
+            a_k, rs_k, s = a[k], float(rs[k]), {key: val[k] for key, val in sol.items()}
         score = red.score(a_k, rs_k, s["iph"], s["i0"], s["g"])
+        if any(np.allclose(a_k, o.n_ns_vt_v, rtol=1e-3)
+               and abs(rs_k - o.series_resistance_ohm) <= 1e-3 * max(rs_k, 1e-12)
+               for o in out):
+            continue  # two grid minima refined into the same point
         out.append(LinearSolution(float(s["iph"]), tuple(map(float, s["i0"])),
                                   tuple(map(float, a_k)), rs_k, float(s["g"]), score))
     out.sort(key=lambda s: s.score)

@@ -41,15 +41,16 @@ LOSSES = ("linear", "soft_l1")
 IDEALITY_BOUNDS = (0.2, 20.0)
 #: ln I0 may go this far below ln(current scale): I0 ~ 1e-39 * Isc is "no diode".
 LOG_I0_SPAN = 90.0
-#: At most this many pre-polished starts get the exact polish (best first)...
-POLISH_COUNT = {1: 2, 2: 2}
-#: ... a runner-up only if its exact cost is within this factor of the best start's.
-RUNNER_UP_COST_RATIO = 2.0
-#: Rounds of the solver-free pre-polish (weights refreshed each round).
-PREPOLISH_ROUNDS = 0
-_PRE_TOL = 1e-6
-_PRE_MAX_ITER = 100
+#: Linearised-model rounds (one exact solve each), their stopping rules, and the
+#: iterations of the cheap inner minimisation per round.
+_SURROGATE_ROUNDS = 30
+_SURROGATE_XTOL = 1e-10
+_SURROGATE_FTOL = 1e-10
+_INNER_TOL = 1e-10
+_INNER_MAX_ITER = 40
+#: Final exact polish (scipy.optimize.least_squares) tolerances and budget.
 _TOL = 1e-14
+_FTOL = 1e-10
 _MAX_NFEV = {1: 200, 2: 80}
 #: Relative size of a singular value of the scaled Jacobian treated as zero.
 _SINGULAR_RTOL = 1e-11
@@ -143,8 +144,23 @@ class _Objective:
         self.i = problem.i_fit
         if problem.dark:
             self.log_abs_i = np.log(np.abs(self.i))
+        self.loss = problem.loss
+        self.f_scale = 1.0
         self._key = None
         self._model = None
+
+    def cost(self, theta) -> float:
+        """Sum of rho(r^2) (the least_squares cost times 2); inf where not finite."""
+        try:
+            r = self.residual(theta)
+        except (ValueError, RuntimeError):
+            return math.inf
+        if not np.all(np.isfinite(r)):
+            return math.inf
+        if self.loss == "soft_l1":
+            z = (r / self.f_scale) ** 2
+            return float(2.0 * self.f_scale**2 * np.sum(np.sqrt(1.0 + z) - 1.0))
+        return float(r @ r)
 
     def model(self, theta):
         key = theta.tobytes()
@@ -207,7 +223,7 @@ def _robust_scale(r: np.ndarray) -> float:
 def _polish(objective: _Objective, theta0, lb, ub, x_scale, loss, f_scale, max_nfev):
     return least_squares(
         objective.residual, theta0, jac=objective.jacobian, bounds=(lb, ub), method="trf",
-        x_scale=x_scale, loss=loss, f_scale=f_scale, ftol=_TOL, xtol=_TOL, gtol=_TOL,
+        x_scale=x_scale, loss=loss, f_scale=f_scale, ftol=_FTOL, xtol=_TOL, gtol=_TOL,
         max_nfev=max_nfev,
     )
 
@@ -249,56 +265,55 @@ def _sort_diodes(layout: Layout, theta, cov):
     return theta[perm], cov[np.ix_(perm, perm)]
 
 
-class _EquationObjective:
-    """Solver-free stand-in for the residual: the implicit-equation residual at the
-    measured points, divided by its first-order link to the current residual (weights
-    frozen for one round so that the Jacobian is exact)."""
+def _surrogate_polish(problem: _Problem, objective: _Objective, theta0, lb, ub, x_scale, *,
+                      rounds: int | None = None):
+    """Newton-linearised model current, minimised cheaply, relinearised until it stops.
 
-    def __init__(self, problem: _Problem, layout: Layout, theta):
-        self.layout = layout
-        self.v = problem.v_fit
-        self.i = problem.i_fit
-        _, _, denom = equation_terms(layout, theta, self.v, self.i)
-        base = 1.0 / np.abs(self.i) if problem.dark else 1.0
-        self.w = base / denom
-        self._key = None
-        self._terms = None
+    At theta_j the model current I_j is solved exactly once; nearby, the model current
+    is I(theta) ~ I_j + F(theta; V, I_j) / (1 + Rs_j*dD/dVd_j) (one Newton step of the
+    implicit equation from I_j), which is explicit. Its value and gradient equal the
+    true ones at theta_j, so a fixed point of this iteration is a stationary point of
+    the true objective; each round costs one exact solve instead of one per step.
+    A round that raises the true cost is halved back (at most a few times).
+    """
+    layout = objective.layout
+    v, i_meas = objective.v, objective.i
+    theta = np.asarray(theta0, dtype=float)
+    cost = objective.cost(theta)
+    if not math.isfinite(cost):
+        return theta
+    for _ in range(_SURROGATE_ROUNDS if rounds is None else rounds):
+        i_j = objective.model(theta)
+        _, _, denom = equation_terms(layout, theta, v, i_j)
+        if problem.dark:
+            w = 1.0 / (denom * i_j)
+            base = np.log(np.abs(i_j)) - objective.log_abs_i
+        else:
+            w = 1.0 / denom
+            base = i_j - i_meas
 
-    def _get(self, theta):
-        key = theta.tobytes()
-        if key != self._key:
-            self._terms = equation_terms(self.layout, theta, self.v, self.i)
-            self._key = key
-        return self._terms
+        def fun_jac(t, i_j=i_j, w=w, base=base):
+            f, jac, _ = equation_terms(layout, t, v, i_j)
+            return base + f * w, jac * w[:, None]
 
-    def residual(self, theta):
-        return self._get(theta)[0] * self.w
-
-    def jacobian(self, theta):
-        return self._get(theta)[1] * self.w[:, None]
-
-
-def _prepolish(problem: _Problem, layout: Layout, theta0, lb, ub, x_scale):
-    """Bring a grid start close to the optimum with the cheap equation residual."""
-    theta = theta0
-    for _ in range(PREPOLISH_ROUNDS):
-        eq = _EquationObjective(problem, layout, theta)
-        r0 = eq.residual(theta)
-        if not np.all(np.isfinite(r0)):
+        proposal = bounded_lm(fun_jac, theta, lb, ub, x_scale, loss=problem.loss,
+                              f_scale=objective.f_scale, max_iter=_INNER_MAX_ITER,
+                              ftol=_INNER_TOL, xtol=_INNER_TOL)
+        step = proposal - theta
+        for _halving in range(4):
+            new_cost = objective.cost(theta + step)
+            if new_cost <= cost:
+                break
+            step = 0.5 * step
+        else:
             return theta
-        f_scale = _robust_scale(r0) if problem.loss == "soft_l1" else 1.0
-        theta = bounded_lm(lambda t: (eq.residual(t), eq.jacobian(t)), theta, lb, ub,
-                           x_scale, loss=problem.loss, f_scale=f_scale,
-                           max_iter=_PRE_MAX_ITER, ftol=_PRE_TOL, xtol=_PRE_TOL)
+        moved = float(np.max(np.abs(step / x_scale)))
+        theta = theta + step
+        drop = cost - new_cost
+        cost = new_cost
+        if moved <= _SURROGATE_XTOL or drop <= _SURROGATE_FTOL * cost:
+            break
     return theta
-
-
-def _exact_cost(objective: _Objective, theta) -> float:
-    try:
-        r = objective.residual(theta)
-    except (ValueError, RuntimeError):
-        return np.inf
-    return float(r @ r) if np.all(np.isfinite(r)) else np.inf
 
 
 def _fit_model(problem: _Problem, n_diodes: int) -> _Fit:
@@ -309,51 +324,44 @@ def _fit_model(problem: _Problem, n_diodes: int) -> _Fit:
     weights = 1.0 / np.abs(i) if problem.dark else np.ones_like(i)
     solutions = _grid.grid_search(v, i, weights, problem.ns_vt_v, n_diodes=n_diodes,
                                   dark=problem.dark, rs_max_ohm=problem.rs_max_ohm)
-    starts = []
-    for sol in solutions:
-        theta0 = _theta_from_solution(problem, layout, sol, lb, ub)
-        if PREPOLISH_ROUNDS:
-            theta0 = _prepolish(problem, layout, theta0, lb, ub,
-                                _scales(problem, layout, theta0))
-        starts.append(theta0)
-    costs = np.array([_exact_cost(objective, t) for t in starts])
-    order = [int(k) for k in np.argsort(costs, kind="stable") if math.isfinite(costs[k])]
-    if not order:
+    if not solutions:
+        raise FitError("the reduced search found no admissible starting point")
+    incumbent = None  # (cost, theta)
+    for rank, sol in enumerate(solutions):
+        theta = _theta_from_solution(problem, layout, sol, lb, ub)
+        x_scale = _scales(problem, layout, theta)
+        if rank == 0 and problem.loss == "soft_l1":
+            r0 = objective.residual(theta)
+            if np.all(np.isfinite(r0)):
+                objective.f_scale = _robust_scale(r0)
+        if incumbent is not None and not sol.score < incumbent[0]:
+            # a runner-up basin whose estimated minimum is no better than the optimum
+            # already found: not worth a polish
+            continue
+        theta = _surrogate_polish(problem, objective, theta, lb, ub, x_scale)
+        cost = objective.cost(theta)
+        if math.isfinite(cost) and (incumbent is None or cost < incumbent[0]):
+            incumbent = (cost, theta)
+    if incumbent is None:
         raise FitError("no starting point gave a finite model current")
-    # polish the best start, and the runners-up whose cost is comparable
-    chosen = [order[0]]
-    for k in order[1:]:
-        if len(chosen) >= POLISH_COUNT[n_diodes]:
-            break
-        distinct = all(np.max(np.abs(starts[k] - starts[j]) / _scales(problem, layout, starts[j]))
-                       > 1e-3 for j in chosen)
-        if distinct and costs[k] <= RUNNER_UP_COST_RATIO * costs[order[0]]:
-            chosen.append(k)
 
-    best = None
-    for k in chosen:
-        theta0 = starts[k]
-        x_scale = _scales(problem, layout, theta0)
-        f_scale = 1.0
-        if problem.loss == "soft_l1":
-            f_scale = _robust_scale(objective.residual(theta0))
-        result = _polish(objective, theta0, lb, ub, x_scale, problem.loss, f_scale,
-                         _MAX_NFEV[n_diodes])
-        if problem.loss == "soft_l1":
-            # second pass with the noise scale of the polished residuals
-            f_scale = _robust_scale(result.fun)
-            result = _polish(objective, result.x, lb, ub, x_scale, problem.loss, f_scale,
-                             _MAX_NFEV[n_diodes])
-        r = objective.residual(result.x)
-        ssr = float(r @ r)
-        key = float(result.cost) if problem.loss == "soft_l1" else ssr
-        if best is None or key < best[0]:
-            best = (key, result.x.copy(), r, ssr, f_scale)
-    _, theta, r, ssr, f_scale = best
+    theta0 = incumbent[1]
+    x_scale = _scales(problem, layout, theta0)
+    result = _polish(objective, theta0, lb, ub, x_scale, problem.loss, objective.f_scale,
+                     _MAX_NFEV[n_diodes])
+    if problem.loss == "soft_l1":
+        # again with the noise scale of the polished residuals
+        objective.f_scale = _robust_scale(result.fun)
+        result = _polish(objective, result.x, lb, ub, x_scale, problem.loss,
+                         objective.f_scale, _MAX_NFEV[n_diodes])
+    theta = result.x.copy()
+    r = objective.residual(theta)
+    ssr = float(r @ r)
     jac = objective.jacobian(theta)
     weights = None
     if problem.loss == "soft_l1":
-        weights = 1.0 / np.sqrt(1.0 + (r / f_scale) ** 2)  # soft_l1: rho'(z), z = (r/C)^2
+        # soft_l1: rho'(z) = 1/sqrt(1 + z), z = (r/C)^2 (iteratively reweighted estimate)
+        weights = 1.0 / np.sqrt(1.0 + (r / objective.f_scale) ** 2)
     cov = _covariance(jac, r, layout.size, weights)
     theta, cov = _sort_diodes(layout, theta, cov)
     return _Fit(layout=layout, theta=theta, residual=r, ssr=ssr, covariance=cov)
