@@ -440,6 +440,33 @@ def test_light_failure_during_a_sweep(fake, make_engine, acquisition):
     assert not fake.light.open                 # closed after the fault
 
 
+def test_dim_lamp_is_a_light_failure(fake, make_engine):
+    """Stable, but at 30 % of the irradiance asked for: caught before the output goes on."""
+    fake.light.drift = lambda k: 0.3
+    engine, critical, _ = make_engine(fake)
+    finished = run_to_end(engine, make_plan(pl.SetLight(shutter_open=True, irradiance_w_m2=1000.0),
+                                            light_sweep()))
+    assert_safe_end(fake, finished, critical.events, cause="light-failure")
+    assert fake.smu.output_history == []
+
+
+def test_overheated_stage_is_named_behind_its_symptom(fake, make_engine):
+    """A point trips first (compliance at the limit), but the stage is out of its window:
+    the event names the temperature and quotes the symptom."""
+    def overheat(smu):
+        fake.thermometer.value_c = fake.thermometer.target_c = 70.0
+
+    fake.smu.inject("set_level_and_measure", at=3, action=overheat)
+    fake.smu.reading_override = lambda r: FakeReading(r.voltage_v, LIMITS.current_a, True) \
+        if fake.thermometer.value_c > 50 else r
+    engine, critical, _ = make_engine(fake)
+    plan = make_plan(dark_sweep(compliance=LIMITS.current_a),
+                     checks=pl.Checks(temperature_window_c=(20.0, 30.0), watchdog_s=2.0))
+    finished = run_to_end(engine, plan)
+    assert_safe_end(fake, finished, critical.events, cause="temperature-window")
+    assert "first symptom: compliance" in finished.reason
+
+
 def test_light_drift_during_a_sweep(fake, make_engine):
     fake.light.drift = lambda k: 1.0 if k < 8 else 0.85
     engine, critical, _ = make_engine(fake)

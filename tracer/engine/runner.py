@@ -61,6 +61,13 @@ MPP_SEARCH_POINTS = 21
 SETTLED_READINGS = 3
 # Most list readings fetched in one query (keeps one reply well under the 1 MiB line limit).
 LIST_CHUNK = 1000
+# A lamp delivering less than this fraction of its set irradiance (by the calibrated
+# reference cell) has failed; smaller deviations are left to the analysis (our design).
+LIGHT_FAILURE_FRACTION = 0.5
+# Trips that a stage out of its temperature window can cause; after one of them the stage
+# temperature is read, and if it is outside the window that is named as the cause.
+_TEMPERATURE_SYMPTOMS = ("compliance", "current-limit", "voltage-limit", "power-limit",
+                         "reverse-bias", "bad-reading", "instrument-error")
 
 _SET_MEASURE = "smu.set_level_and_measure"
 _SET = "smu.set_level"
@@ -264,6 +271,7 @@ class Runner:
         self.sweep_index = 0
         self.step_index = -1
         self.pixel: int | None = None
+        self.light_setpoint_w_m2: float | None = None   # last irradiance a SetLight asked for
         self.output_on = False
         self.open_sweep: _OpenSweep | None = None
         self.pending_point: tuple[_OpenSweep, float, float, float, bool, float] | None = None
@@ -372,8 +380,11 @@ class Runner:
                             status=ev.RUN_FAILED)
 
     def _diagnose(self, outcome: Outcome, verified: bool) -> None:
-        """After an instrument error, ask the SMU (now safe) whether its interlock or
-        protection caused it, so the event names the real cause."""
+        """Name the root cause once the output is safe: after an instrument error ask the
+        SMU whether its interlock or protection caused it; after a symptom an overheated
+        stage produces (a cell running into compliance, ...) check the temperature window."""
+        if outcome.cause in _TEMPERATURE_SYMPTOMS:
+            self._diagnose_temperature(outcome)
         if outcome.cause not in ("instrument-error", "link-lost"):
             return
         if outcome.cause == "link-lost" and not verified:
@@ -388,6 +399,25 @@ class Runner:
                 return
         except BaseException:  # noqa: BLE001 - diagnosis is best effort
             return
+        outcome.reason = f"{outcome.cause}: {outcome.message}"
+
+    def _diagnose_temperature(self, outcome: Outcome) -> None:
+        window = self.plan.checks.temperature_window_c
+        therm = self.bench.thermometer
+        if window is None or therm is None:
+            return
+        try:
+            t = float(self._io("thermometer.temperature", therm.temperature))
+        except BaseException:  # noqa: BLE001 - diagnosis is best effort
+            return
+        if window[0] <= t <= window[1]:
+            return
+        first = outcome.reason
+        outcome.cause = "temperature-window"
+        outcome.message = (f"the stage is at {t:.2f} C, outside the window {window[0]:g}.."
+                           f"{window[1]:g} C (first symptom: {first})")
+        outcome.value = t
+        outcome.limit = window[1] if t > window[1] else window[0]
         outcome.reason = f"{outcome.cause}: {outcome.message}"
 
     def _close_shutter_after_fault(self) -> None:
@@ -562,6 +592,8 @@ class Runner:
             raise Trip("temperature-window", f"the stage is at {t:.2f} C, outside the window "
                        f"{window[0]:g}..{window[1]:g} C", value=t,
                        limit=window[1] if t > window[1] else window[0])
+        if light and self.bench.light is not None:
+            self._check_light_level(reading)
         if light and self.bench.light is not None and checks.light_stability_rel is not None:
             history = [] if sweep is None else [self._light_value(r) for r in sweep.readings]
             history.append(self._light_value(reading))
@@ -578,6 +610,16 @@ class Runner:
             sweep.readings.append(reading)
             sweep.fresh = reading
         return reading
+
+    def _check_light_level(self, reading: Mapping[str, float]) -> None:
+        expected = self.light_setpoint_w_m2
+        g = reading.get("irradiance_w_m2")
+        if expected is None or g is None or expected <= 0:
+            return
+        if not g >= LIGHT_FAILURE_FRACTION * expected:
+            raise Trip("light-failure", f"the reference cell reads {g:.1f} W/m2, less than "
+                       f"{LIGHT_FAILURE_FRACTION:.0%} of the {expected:g} W/m2 set", value=g,
+                       limit=LIGHT_FAILURE_FRACTION * expected)
 
     def _periodic(self, sweep: _OpenSweep) -> None:
         self._check_protection()
@@ -911,6 +953,7 @@ class Runner:
         light = self.bench.light
         if step.irradiance_w_m2 is not None:
             self._io("light.set_irradiance", light.set_irradiance, step.irradiance_w_m2)
+            self.light_setpoint_w_m2 = float(step.irradiance_w_m2)
         self._io("light.shutter", light.shutter, step.shutter_open)
         if bool(self._io("light.shutter_is_open", light.shutter_is_open)) != step.shutter_open:
             raise Trip("shutter", f"the shutter did not {'open' if step.shutter_open else 'close'}")
@@ -923,9 +966,11 @@ class Runner:
         deadline = time.monotonic() + timeout_s
         window: deque[float] = deque(maxlen=SETTLED_READINGS)
         while True:
-            window.append(self._light_value(self._read_light()))
+            reading = self._read_light()
+            window.append(self._light_value(reading))
             instability = iec_instability(list(window))
             if len(window) == SETTLED_READINGS and instability <= tolerance:
+                self._check_light_level(reading)
                 return
             if time.monotonic() > deadline:
                 if math.isinf(instability):
