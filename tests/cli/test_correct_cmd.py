@@ -139,17 +139,26 @@ class _no_raise:
 
 
 @pytest.mark.parametrize("content", ["voltage_v,current_a\n1,2\nx,3\n", "volts,amps\n1,2\n",
-                                     "", "voltage_v,current_a\n1,2\n2,3\n"])
-def test_bad_files_exit_2_without_traceback(tmp_path, content):
+                                     "", "voltage_v,current_a\n1,2\n2,3\n", None])
+def test_bad_files_exit_2_with_one_line(tmp_path, capsys, content):
+    path = tmp_path / "bad.csv"
+    if content is not None:
+        path.write_text(content)
+    code = main(["correct", str(path), "--procedure", "1", "--irradiance-w-m2", "800",
+                 "--temperature-c", "25", "--series-resistance-ohm", "1"])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert len(err.strip().splitlines()) == 1 and "Traceback" not in err
+
+
+def test_bad_file_from_a_shell_has_no_traceback(tmp_path):
     bad = tmp_path / "bad.csv"
-    bad.write_text(content)
-    for path in (str(bad), str(tmp_path / "missing.csv")):
-        r = subprocess.run([sys.executable, "-m", "tracer.cli.main", "correct", path,
-                            "--procedure", "1", "--irradiance-w-m2", "800", "--temperature-c", "25",
-                            "--series-resistance-ohm", "1"], capture_output=True, text=True,
-                           timeout=60)
-        assert r.returncode == 2, r.stderr
-        assert len(r.stderr.strip().splitlines()) == 1 and "Traceback" not in r.stderr
+    bad.write_text("voltage_v,current_a\n1,2\nx,3\n")
+    r = subprocess.run([sys.executable, "-m", "tracer.cli.main", "correct", str(bad),
+                        "--procedure", "1", "--irradiance-w-m2", "800", "--temperature-c", "25"],
+                       capture_output=True, text=True, timeout=120)
+    assert r.returncode == 2, r.stderr
+    assert len(r.stderr.strip().splitlines()) == 1 and "Traceback" not in r.stderr
 
 
 def test_out_needs_a_single_result(tmp_path, capsys, module_row):

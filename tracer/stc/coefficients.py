@@ -19,7 +19,7 @@ Sandia PV_LIB ``pvl_est_Rs_IEC60891_1/2`` and ``pvl_est_kappa_IEC60891_1`` (Hans
   temperature with the Rs found; kappa chosen so that the translated Pmax agree (same
   objective).
 
-One-dimensional searches: a 41-point grid over the bracket, then bounded Brent around the
+One-dimensional searches: a 25-point grid over the bracket, then bounded Brent around the
 best grid point (the objective is a max of absolute values, piecewise smooth).
 The Rs found is a translation parameter, not the single-diode series resistance.
 """
@@ -53,7 +53,7 @@ __all__ = [
     "determine_procedure2_coefficients",
 ]
 
-GRID_POINTS = 41
+GRID_POINTS = 25
 
 
 @dataclass(frozen=True)
