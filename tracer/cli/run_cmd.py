@@ -254,6 +254,15 @@ class _Interrupts:
     def _handle(self, signum, frame) -> None:
         self.count += 1
         name = "Ctrl-C" if signum == signal.SIGINT else signal.Signals(signum).name
+        if not self.engine.running:
+            # between runs (the output is already off): once = finish quietly with 130,
+            # twice = stop reporting at once
+            if self.count >= 2:
+                raise KeyboardInterrupt
+            self.err.write(f"\n{name}: the run is over and the output is off; finishing the "
+                           f"report (again to skip it)\n")
+            self.err.flush()
+            return
         if self.count == 1:
             self.err.write(f"\n{name}: stopping - the output goes to 0 and off "
                            f"(again for an emergency stop)\n")
@@ -347,26 +356,26 @@ def execute(protocol_path: Path, *, bench_file: Path | None = None, sample: str 
                         "simulated_bench": app.simulated}
             token = app.engine.subscribe(progress, batch=True)
             interrupts.install()
-            try:
-                run_uid = app.engine.start(plan, operator=who, metadata=metadata)
-                if on_started is not None:
-                    on_started(app, run_uid)
-                finished = None
-                while finished is None:
-                    finished = app.engine.wait(0.1)
-            finally:
-                interrupts.restore()
+            run_uid = app.engine.start(plan, operator=who, metadata=metadata)
+            if on_started is not None:
+                on_started(app, run_uid)
+            finished = None
+            while finished is None:
+                finished = app.engine.wait(0.1)
             app.engine.flush(5.0)
             app.engine.unsubscribe(token)
             progress.close()
+        code = _exit_code(finished, interrupts.count)
+        code = _report(app.logbook_path, run_uid, out_dir, code, finished, as_json, out, err)
+        return EXIT_INTERRUPTED if interrupts.count and code == EXIT_OK else code
     except KeyboardInterrupt:
-        # only outside the run's wait (handlers restored); the engine closed safely on exit
+        # a second signal after the run ended, or one before it started: the engine was
+        # closed (emergency stop if anything ran) when the ``with`` block unwound
         progress.close()
         print("interrupted", file=err)
         return EXIT_INTERRUPTED
-
-    code = _exit_code(finished, interrupts.count)
-    return _report(app.logbook_path, run_uid, out_dir, code, finished, as_json, out, err)
+    finally:
+        interrupts.restore()
 
 
 def _login() -> str:
