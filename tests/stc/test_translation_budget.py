@@ -125,3 +125,16 @@ def test_no_method_available_gives_no_primary(cs5p):
                          methods=("procedure2", "procedure3", "diode_model"))
     assert r.primary is None and r.pmax_w is None and r.pmax_budget is None
     assert all(not m.ok and m.error for m in r.methods)
+
+
+def test_a_sensitivity_that_cannot_be_computed_is_left_out_with_a_note(cs5p):
+    # the diode model at 25 C needs no alpha, but moving T1 by +-0.5 K for the temperature
+    # sensitivity would: that input is left out and said so, the rest of the budget stands
+    v, i = cs5p.voltage_grid_curve(800, 25)
+    fit = fit_curve(v, i, model="single", temperature_k=298.15, cells_in_series=96)
+    r = translate_to_stc(v, i, irradiance_w_m2=800, temperature_c=25, methods=("diode_model",),
+                         diode_model=fit.to_model(), uncertainty=U)
+    names = [e.name for e in r.pmax_budget.entries]
+    assert "device temperature reading" not in names
+    assert "reference cell calibration" in names
+    assert any("temperature" in n for n in r.pmax_budget.notes)

@@ -30,6 +30,7 @@ area is known) lists, as uncorrelated inputs (JCGM 100:2008 eq. 10):
 """
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 from typing import Callable, Sequence
 
@@ -308,14 +309,30 @@ def _pmax_budget(pmax: float, pmax_of: Callable[..., float], g1: float, t1: floa
                  spread: dict, u: UncertaintyInputs, diode_model,
                  measured_figures: CurveFigures) -> UncertaintyBudget:
     entries: list[BudgetEntry] = []
+    notes: list[str] = []
     need_g = u.reference_cell_calibration_rel > 0 or u.irradiance_other_rel > 0 or u.mismatch_rel > 0
     c_g = c_t = None
-    if need_g:
-        up, down = pmax_of(1.0 + G_STEP_REL), pmax_of(1.0 - G_STEP_REL)
-        c_g = (up - down) / (2.0 * G_STEP_REL * g1)            # W per W/m^2
-    if u.temperature_k > 0:
-        up, down = pmax_of(1.0, T_STEP_K), pmax_of(1.0, -T_STEP_K)
-        c_t = (up - down) / (2.0 * T_STEP_K)                    # W per K
+
+    def sensitivity(what: str, f: Callable[[float], float], step: float, scale: float):
+        try:
+            value = (f(step) - f(-step)) / (2.0 * step * scale)
+        except (ValueError, TypeError, ArithmeticError, np.linalg.LinAlgError) as exc:
+            notes.append(f"{what} left out: its sensitivity could not be computed ({exc})")
+            return None
+        if not np.isfinite(value):
+            notes.append(f"{what} left out: its sensitivity is not finite")
+            return None
+        return float(value)
+
+    if need_g:   # W per W/m^2
+        c_g = sensitivity("irradiance inputs", lambda h: pmax_of(1.0 + h), G_STEP_REL, g1)
+    if u.temperature_k > 0:   # W per K
+        c_t = sensitivity("temperature reading", lambda h: pmax_of(1.0, h), T_STEP_K, 1.0)
+    if c_g is None:
+        u = dataclasses.replace(u, reference_cell_calibration_rel=0.0, irradiance_other_rel=0.0,
+                                mismatch_rel=0.0)
+    if c_t is None:
+        u = dataclasses.replace(u, temperature_k=0.0)
     if u.reference_cell_calibration_rel > 0:
         entries.append(BudgetEntry("reference cell calibration", "G1", g1, "W/m^2",
                                    u.reference_cell_calibration_rel * g1, "normal", c_g,
@@ -351,7 +368,8 @@ def _pmax_budget(pmax: float, pmax_of: Callable[..., float], g1: float, t1: floa
     if u.voltage_reading_rel > 0:
         entries.append(BudgetEntry("voltage reading", "V", 1.0, "1", u.voltage_reading_rel,
                                    "normal", pmax, "SMU accuracy specification"))
-    return UncertaintyBudget("pmax_stc_w", "W", pmax, tuple(entries), u.coverage_factor)
+    return UncertaintyBudget("pmax_stc_w", "W", pmax, tuple(entries), u.coverage_factor,
+                             tuple(notes))
 
 
 def _efficiency_budget(pmax_budget: UncertaintyBudget, eff: float, g2: float, area_m2: float,
@@ -363,4 +381,5 @@ def _efficiency_budget(pmax_budget: UncertaintyBudget, eff: float, g2: float, ar
     if u.area_rel > 0:
         entries.append(BudgetEntry("device area", "A", area_m2, "m^2", u.area_rel * area_m2,
                                    "normal", -eff / area_m2, "area measurement (IEC 60904-1 Annex A)"))
-    return UncertaintyBudget("efficiency", "1", eff, tuple(entries), u.coverage_factor)
+    return UncertaintyBudget("efficiency", "1", eff, tuple(entries), u.coverage_factor,
+                             pmax_budget.notes)

@@ -73,6 +73,7 @@ class UncertaintyBudget:
     value: float
     entries: tuple[BudgetEntry, ...]
     coverage_factor: float = 2.0
+    notes: tuple[str, ...] = ()          # inputs left out, and why
 
     @property
     def combined_standard_uncertainty(self) -> float:
@@ -100,4 +101,4 @@ class UncertaintyBudget:
                 "coverage_factor": _num(self.coverage_factor),
                 "expanded_uncertainty": _num(self.expanded_uncertainty),
                 "method": "JCGM 100:2008, uncorrelated inputs (eq. 10)",
-                "contributions": entries}
+                "contributions": entries, "notes": list(self.notes)}
