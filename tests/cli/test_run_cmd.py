@@ -315,3 +315,68 @@ def test_progress_keeps_one_updating_line_on_a_terminal():
     progress([done])
     progress.close()
     assert stream.getvalue().rstrip().endswith("completed with 3 points")
+
+
+# ----------------------------------------------------------------------------- composition
+def _profile(**kw):
+    from types import SimpleNamespace
+
+    ref = SimpleNamespace(calibration_isc_a=0.12, calibration_uncertainty_rel=0.01,
+                          temperature_coefficient_per_k=0.0005)
+    return SimpleNamespace(reference_cell=ref, usual_series_resistance_ohm=1.0,
+                           instability_class="A", **kw)
+
+
+def test_protocol_analysis_becomes_analysis_settings():
+    from types import SimpleNamespace
+
+    from tracer.app import _analysis_settings
+
+    analysis = {
+        "models": ["single", "double"],
+        "translation": {"target_irradiance_w_m2": 1000.0, "target_temperature_c": 25.0,
+                        "procedures": [1, 2, "model"],
+                        "procedure_1": {"rs_ohm": 0.5, "kappa_ohm_per_k": 0.001},
+                        "procedure_2": {"rs_ohm": 0.4, "kappa_ohm_per_k": 0.0,
+                                        "voc_irradiance_factor": 0.05}},
+        "temperature_coefficients": {"alpha_isc_per_k": 0.0006, "beta_voc_v_per_k": -0.002},
+        "reference_cell": None,
+    }
+    figures = SimpleNamespace(isc_a=0.038, voc_v=0.61)
+    s = _analysis_settings(analysis, _profile(), figures)
+    assert s.models == ("single", "double")
+    assert s.stc_methods == ("procedure1", "procedure2", "diode_model")
+    # IEC 60891 procedure 1 takes absolute coefficients, procedure 2 relative ones; the
+    # relative coefficient is the absolute one divided by Isc (or Voc) - by definition.
+    assert s.procedure1.alpha_a_per_k == pytest.approx(0.0006 * 0.038, rel=1e-12)
+    assert s.procedure1.beta_v_per_k == -0.002
+    assert s.procedure1.series_resistance_ohm == 0.5 and s.procedure1.kappa_ohm_per_k == 0.001
+    assert s.procedure2.alpha_rel_per_k == 0.0006
+    assert s.procedure2.beta_rel_per_k == pytest.approx(-0.002 / 0.61, rel=1e-12)
+    assert s.procedure2.irradiance_factor == 0.05
+    assert s.alpha_isc_rel_per_k == 0.0006
+    # the bench's reference cell when the protocol names none
+    assert s.reference_cell.calibration_isc_a == 0.12
+    assert s.usual_series_resistance_ohm == 1.0 and s.quality.instability_class == "A"
+    # without coefficients for procedure 1, it is still asked for (and reports what it lacks)
+    bare = _analysis_settings({"models": ["auto"], "translation": {"procedures": [1]}}, None, None)
+    assert bare.stc_methods == ("procedure1",) and bare.procedure1 is None
+
+
+def test_irradiance_from_the_reference_cell_calibration():
+    from tracer.app import _irradiance_function
+
+    g = _irradiance_function(_profile())
+    # IEC 60904-2: a reference cell reading its calibration Isc at its calibration
+    # temperature sees the calibration irradiance (1000 W/m2); the reading scales linearly
+    # and is corrected by its relative temperature coefficient.
+    assert g(0.12, 25.0) == pytest.approx(1000.0, rel=1e-12)
+    assert g(-0.06, 25.0) == pytest.approx(500.0, rel=1e-12)      # sign of the wiring ignored
+    assert g(0.12, 35.0) == pytest.approx(1000.0 / (1 + 0.0005 * 10), rel=1e-12)
+    assert _irradiance_function(_no_reference_cell()) is None
+
+
+def _no_reference_cell():
+    from types import SimpleNamespace
+
+    return SimpleNamespace(reference_cell=None)
