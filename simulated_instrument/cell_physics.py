@@ -17,7 +17,9 @@ with ``a = n Ns k T / q``.  ``s`` is the slow internal state of the optional mem
 (a resistance R_mem in series with a storage element whose voltage ``s`` relaxes towards the
 cell voltage with a time constant; it makes forward and reverse sweeps differ) and
 ``R_short`` a fault short across the device.  ``v_cell`` rises and ``i_gen`` falls strictly
-with ``vd``, so any target (a terminal voltage, a current) has exactly one root in ``vd``.
+with ``vd``, so any target (a terminal voltage, a current) has exactly one root in ``vd``,
+found by a safeguarded Newton iteration on a bracket (:func:`solve_increasing`) for single
+points and by vectorised bisection (:func:`current_at_voltage`) for whole curves.
 
 Temperature and irradiance laws (De Soto et al., Solar Energy 80 (2006) 78-88, as used by
 pvlib's ``calcparams_desoto``)::
@@ -34,7 +36,6 @@ from dataclasses import dataclass, fields, replace
 
 import numpy as np
 from scipy import constants
-from scipy.optimize import brentq
 
 #: Boltzmann constant over the elementary charge [V/K] (CODATA via scipy.constants).
 K_OVER_Q = constants.k / constants.e
@@ -136,41 +137,77 @@ def internal_current(c: OperatingCell, vd: float) -> float:
             - vd * c.gsh + c.ibd * _exp((c.vbd - vd) / c.sbd))
 
 
+def circuit(c: OperatingCell, vd: float, memory_v: float = 0.0) -> tuple[float, float, float, float]:
+    """(v_cell, i_gen, dv_cell/dvd, di_gen/dvd) at junction voltage ``vd``."""
+    e1 = c.i01 * _exp(vd / c.a1)
+    e2 = c.i02 * _exp(vd / c.a2)
+    eb = c.ibd * _exp((c.vbd - vd) / c.sbd)
+    i_int = c.iph - (e1 - c.i01) - (e2 - c.i02) - vd * c.gsh + eb
+    di_int = -e1 / c.a1 - e2 / c.a2 - c.gsh - eb / c.sbd
+    v_cell = vd - i_int * c.rs
+    dv_cell = 1.0 - di_int * c.rs
+    g_extra = c.g_mem + c.g_short
+    i_gen = i_int - (v_cell - memory_v) * c.g_mem - v_cell * c.g_short
+    di_gen = di_int - dv_cell * g_extra
+    return v_cell, i_gen, dv_cell, di_gen
+
+
 def cell_point(c: OperatingCell, vd: float, memory_v: float = 0.0) -> tuple[float, float]:
     """(v_cell, i_gen) at junction voltage ``vd``."""
-    i_int = internal_current(c, vd)
-    v_cell = vd - i_int * c.rs
-    i_gen = i_int - (v_cell - memory_v) * c.g_mem - v_cell * c.g_short
+    v_cell, i_gen, _, _ = circuit(c, vd, memory_v)
     return v_cell, i_gen
 
 
-def solve_increasing(fn, target: float, guess: float) -> float:
-    """Root of ``fn(x) = target`` for a strictly increasing ``fn``: bracket, then Brent."""
-    lo = hi = guess
-    step = 0.5
-    f_lo = fn(lo) - target
-    if f_lo == 0.0:
-        return lo
-    if f_lo > 0.0:
-        for _ in range(200):
-            hi, lo = lo, lo - step
-            step *= 2.0
-            f_lo = fn(lo) - target
-            if f_lo <= 0.0:
-                break
+def solve_increasing(fn, target: float, guess: float, tolerance: float = 1e-15) -> float:
+    """Root of ``fn(x)[0] = target`` for a strictly increasing ``fn`` returning (value, slope).
+
+    Safeguarded Newton on a bracket (the ``rtsafe`` scheme): every evaluation narrows the
+    bracket [lo, hi] by the sign of the residual.  While one side is still open, Newton
+    steps are stretched when they keep landing on the same side and limited in length (the
+    limit doubles at each use, so any root is reached);
+    once the bracket is closed, a Newton step that would leave it, or that does not at
+    least halve the previous step, is replaced by bisection.  Ends when the bracket or the
+    step is at the resolution of float64.
+    """
+    lo, hi = -math.inf, math.inf
+    x = guess
+    max_step = 0.5
+    previous_step = math.inf
+    grow = 0.5
+    last_f = math.nan
+    for _ in range(600):
+        value, slope = fn(x)
+        f = value - target
+        if f == 0.0:
+            return x
+        if f < 0.0:
+            lo = x
         else:
-            raise ArithmeticError("no lower bracket")
-    else:
-        for _ in range(200):
-            lo, hi = hi, hi + step
-            step *= 2.0
-            if fn(hi) - target >= 0.0:
-                break
+            hi = x
+        newton = -f / slope if slope > 0.0 and math.isfinite(slope) else math.copysign(math.inf, -f)
+        if abs(newton) <= tolerance * max(1.0, abs(x)):
+            return x + newton
+        closed = math.isfinite(lo) and math.isfinite(hi)
+        if closed:
+            if hi - lo <= tolerance * max(1.0, abs(lo), abs(hi)):
+                return 0.5 * (lo + hi)
+            x_new = x + newton
+            if not lo < x_new < hi or abs(newton) > 0.5 * previous_step:
+                x_new = 0.5 * (lo + hi)
         else:
-            raise ArithmeticError("no upper bracket")
-    if fn(lo) - target == 0.0:
-        return lo
-    return brentq(lambda x: fn(x) - target, lo, hi, xtol=1e-15, rtol=4 * np.finfo(float).eps, maxiter=200)
+            # same side as before: Newton is creeping along an exponential, so stride longer
+            grow = grow * 2.0 if (f < 0.0) == (last_f < 0.0) else 1.0
+            wanted = abs(newton) * grow
+            step = math.copysign(min(wanted, max_step), newton)
+            if wanted > max_step:
+                max_step *= 2.0
+            x_new = x + step
+        last_f = f
+        previous_step = abs(x_new - x)
+        if previous_step <= tolerance * max(1.0, abs(x)):
+            return x_new
+        x = x_new
+    raise ArithmeticError("root search did not converge")
 
 
 @dataclass(frozen=True)
@@ -181,16 +218,18 @@ class CircuitPoint:
     cell_voltage_v: float       # at the device contacts (where four-wire sense leads sit)
     load_current_a: float       # into the device's + terminal
     in_compliance: bool
+    junction_voltage_v: float = 0.0
 
 
 def operating_point(cell: OperatingCell | None, *, mode: str, level: float, limit: float,
                     lead_resistance_ohm: float, remote_sense: bool,
-                    memory_v: float = 0.0) -> CircuitPoint:
+                    memory_v: float = 0.0, guess_v: float | None = None) -> CircuitPoint:
     """Solve the SMU (voltage or current source with a compliance clamp) into the device.
 
     ``lead_resistance_ohm`` is the total of both force leads; with two-wire sensing the SMU
     regulates its own terminals, with four-wire sensing it regulates the device contacts.
-    ``cell`` None means an open circuit (no pixel connected).
+    ``cell`` None means an open circuit (no pixel connected).  ``guess_v``: a junction
+    voltage to start the root search from (e.g. the previous point's), only a speed-up.
     """
     limit = abs(limit)
     r_lead = lead_resistance_ohm
@@ -202,26 +241,30 @@ def operating_point(cell: OperatingCell | None, *, mode: str, level: float, limi
         v = math.copysign(limit, level)
         return CircuitPoint(v, v, 0.0, True)
 
-    def load_current(vd: float) -> float:
-        return -cell_point(cell, vd, memory_v)[1]
+    def load_current(vd: float) -> tuple[float, float]:
+        _, i_gen, _, di_gen = circuit(cell, vd, memory_v)
+        return -i_gen, -di_gen
 
-    def regulated_voltage(vd: float) -> float:
-        v_cell, i_gen = cell_point(cell, vd, memory_v)
-        return v_cell if remote_sense else v_cell - i_gen * r_lead
+    def regulated_voltage(vd: float) -> tuple[float, float]:
+        v_cell, i_gen, dv_cell, di_gen = circuit(cell, vd, memory_v)
+        if remote_sense:
+            return v_cell, dv_cell
+        return v_cell - i_gen * r_lead, dv_cell - di_gen * r_lead
 
     def point(vd: float, clamped: bool) -> CircuitPoint:
         v_cell, i_gen = cell_point(cell, vd, memory_v)
         i_load = -i_gen
-        return CircuitPoint(v_cell + i_load * r_lead, v_cell, i_load, clamped)
+        return CircuitPoint(v_cell + i_load * r_lead, v_cell, i_load, clamped, vd)
 
     if mode == "VOLT":
-        vd = solve_increasing(regulated_voltage, level, level)
+        start = guess_v if guess_v is not None and abs(guess_v - level) < 0.5 else level
+        vd = solve_increasing(regulated_voltage, level, start)
         p = point(vd, False)
         if abs(p.load_current_a) > limit:
             vd = solve_increasing(load_current, math.copysign(limit, p.load_current_a), vd)
             p = point(vd, True)
         return p
-    vd = solve_increasing(load_current, level, 0.0)
+    vd = solve_increasing(load_current, level, 0.0 if guess_v is None else guess_v)
     p = point(vd, False)
     v_regulated = p.cell_voltage_v if remote_sense else p.terminal_voltage_v
     if abs(v_regulated) > limit:
@@ -231,7 +274,11 @@ def operating_point(cell: OperatingCell | None, *, mode: str, level: float, limi
 
 
 def open_circuit_voltage(cell: OperatingCell, memory_v: float = 0.0) -> float:
-    vd = solve_increasing(lambda x: -cell_point(cell, x, memory_v)[1], 0.0, 0.0)
+    def load_current(vd: float) -> tuple[float, float]:
+        _, i_gen, _, di_gen = circuit(cell, vd, memory_v)
+        return -i_gen, -di_gen
+
+    vd = solve_increasing(load_current, 0.0, 0.0)
     return cell_point(cell, vd, memory_v)[0]
 
 

@@ -266,9 +266,13 @@ class ParsedHeader:
     params: str
 
 
+_WHITESPACE_TEXT = "".join(sorted(_WHITESPACE))
+_HEADER_CACHE: dict[str, tuple[bool, bool, tuple, bool]] = {}
+
+
 def parse_unit(unit: str) -> ParsedHeader | None:
     """Parse one program unit into header tokens and the raw parameter text."""
-    text = unit.lstrip("".join(_WHITESPACE))
+    text = unit.lstrip(_WHITESPACE_TEXT)
     if not text.strip():
         return None
     i = 0
@@ -284,6 +288,15 @@ def parse_unit(unit: str) -> ParsedHeader | None:
     params = rest.strip()
     if not header:
         raise ScpiError(-102, "missing header")
+    parsed = _HEADER_CACHE.get(header)
+    if parsed is None:
+        parsed = _parse_header(header)
+        if len(_HEADER_CACHE) < 4096:
+            _HEADER_CACHE[header] = parsed
+    return ParsedHeader(*parsed, params)
+
+
+def _parse_header(header: str) -> tuple[bool, bool, tuple, bool]:
     query = header.endswith("?")
     core = header[:-1] if query else header
     if "?" in core:
@@ -292,25 +305,27 @@ def parse_unit(unit: str) -> ParsedHeader | None:
         name = core[1:]
         if not name.isalpha():
             raise ScpiError(-102, f"bad common header {header}")
-        return ParsedHeader(True, True, (("*" + name.upper(), None),), query, params)
+        return True, True, (("*" + name.upper(), None),), query
     absolute = core.startswith(":")
     if absolute:
         core = core[1:]
-    parts = core.split(":")
     tokens = []
-    for part in parts:
+    for part in core.split(":"):
         if not part:
             raise ScpiError(-102, "empty mnemonic")
         if "*" in part:
             raise ScpiError(-102, f"'*' in mnemonic {part}")
-        match = re.match(r"^([A-Za-z][A-Za-z0-9_]*?)(\d*)$", part)
+        match = _MNEMONIC.match(part)
         if not match:
             raise ScpiError(-102, f"bad mnemonic {part}")
         name, suffix = match.group(1), match.group(2)
         if len(name) > 12:
             raise ScpiError(-112, part)
         tokens.append((name.upper(), int(suffix) if suffix else None))
-    return ParsedHeader(False, absolute, tuple(tokens), query, params)
+    return False, absolute, tuple(tokens), query
+
+
+_MNEMONIC = re.compile(r"^([A-Za-z][A-Za-z0-9_]*?)(\d*)$")
 
 
 # --------------------------------------------------------------------------- numbers and units

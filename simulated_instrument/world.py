@@ -170,6 +170,8 @@ class VirtualBench:
         self.last_smu_connection: Any = None
         self.connection_hooks: dict[str, Callable] = {}
         self.instruments: dict[str, Any] = {}
+        self._point_cache: tuple | None = None
+        self._last_vd: float | None = None
 
     # ------------------------------------------------------------------ time
     @property
@@ -364,15 +366,27 @@ class VirtualBench:
         if memory_v is None:
             memory_v = self.memory_v[self.closed_pixel - 1] if self.closed_pixel else 0.0
         leads = 2.0 * self.settings["smu"]["lead_resistance_ohm"] + self.settings["switch"]["on_resistance_ohm"]
-        return operating_point(cell, mode=f, level=smu.level[f], limit=limit,
-                               lead_resistance_ohm=leads, remote_sense=smu.remote_sense, memory_v=memory_v)
+        point = operating_point(cell, mode=f, level=smu.level[f], limit=limit, lead_resistance_ohm=leads,
+                                remote_sense=smu.remote_sense, memory_v=memory_v, guess_v=self._last_vd)
+        self._last_vd = point.junction_voltage_v if cell is not None else None
+        return point
 
     def present_point(self) -> CircuitPoint | None:
         """The true operating point now (no noise, no flicker), or None with the output off."""
-        if not self.smu.output_on:
+        smu = self.smu
+        if not smu.output_on:
             return None
-        cell, memory = self.connected_device(self.irradiance_at_sample())
-        return self.solve(cell, memory)
+        g = self.irradiance_at_sample()
+        pixel = self.closed_pixel
+        key = (smu.function, smu.level[smu.function], smu.compliance["CURR"], smu.compliance["VOLT"],
+               smu.remote_sense, pixel, g, self.stage_t_c, self.memory_v[pixel - 1] if pixel else 0.0,
+               self.short_fault, self.settings["smu"]["lead_resistance_ohm"])
+        if self._point_cache is not None and self._point_cache[0] == key:
+            return self._point_cache[1]
+        cell, memory = self.connected_device(g)
+        point = self.solve(cell, memory)
+        self._point_cache = (key, point)
+        return point
 
     def check_protection(self) -> bool:
         """Trip the OVP if the terminal voltage exceeds it; False if the output went off."""
