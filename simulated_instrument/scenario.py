@@ -11,7 +11,7 @@ A scenario is a YAML file (our own format, loaded with ``yaml.safe_load``)::
       instability_class: A
       usual_series_resistance_ohm: 1.0
     smu: {lead_resistance_ohm: 0.15, line_frequency_hz: 50, noise_rel_of_range: 2.0e-5, ...}
-    light: {setpoint_w_m2: 1000, lamp_time_constant_s: 0.3, flicker_rel: 0.002, ...}
+    light: {setpoint_w_m2: 1000, lamp_time_constant_s: 0.3, flicker_rel: 0.001, ...}
     reference_cell: {calibration_isc_a: 0.12, temperature_coefficient_per_k: 0.0005, ...}
     stage: {setpoint_c: 25, time_constant_s: 30, ambient_c: 25, heating_k_per_kw_m2: 1.5}
     substrate:
@@ -61,7 +61,7 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "lamp_time_constant_s": 0.3,
         "warmup_drift_rel": 0.0,            # relative excess at ignition, decays with warm-up
         "warmup_time_constant_s": 120.0,
-        "flicker_rel": 0.002,               # relative 1-sigma fluctuation per reading
+        "flicker_rel": 0.001,               # relative 1-sigma fluctuation per reading
         "failure_factor": 0.05,             # what is left after the light-failure fault
         "settled_rel": 0.002,               # |G - set| <= this * set counts as settled
     },
