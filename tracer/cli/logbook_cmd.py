@@ -71,7 +71,7 @@ def register(subparsers) -> None:
 
 def _open(args) -> Logbook:
     path = args.logbook if args.logbook is not None else default_logbook_path()
-    if args.logbook is not None and not Path(path).exists():
+    if not Path(path).exists():     # reading never creates a logbook
         raise LogbookError(f"no logbook at {path}")
     return Logbook(path)
 

@@ -31,6 +31,7 @@ import signal
 import sys
 import threading
 import time
+import warnings
 from pathlib import Path
 from typing import Any, TextIO
 
@@ -457,7 +458,15 @@ def _report(logbook_path: Path, run_uid: str, out_dir: Path, code: int, finished
 
 
 # ----------------------------------------------------------------------------- commands
+def _quiet_numerical_warnings() -> None:
+    """Overflow and similar warnings inside the fits are part of their search (whatever
+    fails is reported in the analysis result); on a terminal they are only noise."""
+    warnings.filterwarnings("ignore", category=RuntimeWarning,
+                            module=r"tracer\.(fit|model|stc|quality|analysis)")
+
+
 def cmd_run(args: argparse.Namespace) -> int:
+    _quiet_numerical_warnings()
     if args.bench is not None and (args.sim_scenario or args.sim_time_scale is not None
                                    or args.sim_seed is not None):
         print("tracer: --sim-* options apply only to the built-in simulated bench (no --bench)",
@@ -479,6 +488,7 @@ def demo_protocol_path() -> Path:
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
+    _quiet_numerical_warnings()
     try:
         protocol = demo_protocol_path()
     except FileNotFoundError as exc:
