@@ -186,6 +186,30 @@ def test_an_interlock_opening_mid_sweep_exits_3_with_the_reason(tmp_path, capsys
         assert lb.sweeps(run.uid)[-1].status == "aborted"
 
 
+def test_a_fault_on_a_standalone_simulator_through_a_bench_file_exits_3(tmp_path, capsys):
+    profile = tmp_path / "bench.yaml"
+    sim = subprocess.Popen(
+        [sys.executable, "-m", "simulated_instrument", "--time-scale", "0.01", "--seed", "0",
+         "--bench-file", str(profile), "--fault", "interlock:150"],
+        stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    try:
+        deadline = time.monotonic() + 30
+        while not (profile.exists() and profile.stat().st_size):
+            assert sim.poll() is None and time.monotonic() < deadline, "simulator did not start"
+            time.sleep(0.05)
+        code = main(["run", str(DEMO), "--bench", str(profile), "--logbook",
+                     str(tmp_path / "lb.sqlite"), "--out", str(tmp_path / "out")])
+    finally:
+        sim.terminate()
+        sim.wait(10)
+    assert code == 3
+    assert "run aborted: interlock" in capsys.readouterr().err
+    with Logbook(tmp_path / "lb.sqlite") as lb:
+        run = lb.run("latest")
+        assert run.status == "aborted" and run.output_verified_off is True
+        assert run.bench["simulated"] is True
+
+
 # ----------------------------------------------------------------------------- signals
 def _spawn(tmp_path, *extra):
     env = {**os.environ, "PYTHONUNBUFFERED": "1", "QT_QPA_PLATFORM": "offscreen"}
