@@ -108,11 +108,13 @@ def test_demo_writes_logbook_exports_and_picture(tmp_path, capsys):
 
 def test_json_output_is_one_document(tmp_path, capsys):
     code = run_cmd.execute(DEMO, logbook=tmp_path / "lb.sqlite", out_dir=tmp_path / "out",
-                           as_json=True, time_scale=0.01, engine_options=FAST)
+                           as_json=True, time_scale=0.01, engine_options=FAST,
+                           sample="PLT-TEST-9", operator="ana")
     captured = capsys.readouterr()
     doc = json.loads(captured.out)
     assert code == 0 and doc["exit_status"] == 0
     assert doc["run"]["status"] == "completed"
+    assert doc["run"]["sample_id"] == "PLT-TEST-9" and doc["run"]["operator"] == "ana"
     assert [s["step_name"] for s in doc["sweeps"]] == ["dark", "light"]
     light = doc["sweeps"][1]["summary"]
     assert light["isc_a"] > 0 and light["voc_v"] > 0 and light["verdict"] in ("keep", "re-measure")
