@@ -307,7 +307,10 @@ class SmuInstrument(BenchInstrument):
                 levels = [s.level[f]] * s.trigger_count
             w.start_sweep(f, levels)
             if w.time_scale == 0:
-                w.spend(w.sweep_remaining())
+                # Run the whole sweep now. wait_for keeps stepping the clock until the last
+                # point is stored: a single jump by the remaining time can fall a rounding
+                # error short of the last point's end and leave the sweep running forever.
+                w.wait_for(lambda: self.s.sweep is None, w.sweep_remaining)
 
         t.add("INITiate[:IMMediate]", set=initiate)
         t.add("ABORt", set=lambda ctx: w.abort_sweep())

@@ -397,3 +397,21 @@ def test_hysteretic_cell_forward_and_reverse_sweeps_differ(open_resource):
             curves[name] = np.interp(0.8, data[order, 0], -data[order, 1])
         # a reverse scan (from Voc down) delivers more current at 0.8 V than a forward scan
         assert curves["reverse"] > curves["forward"] + 1e-3
+
+
+def test_list_sweep_at_time_scale_zero_always_stores_every_point(smu):
+    # Regression: after a few fixed-level readings the simulated clock sits at a value where
+    # one jump by the "remaining" time fell a rounding error short of the last point's end,
+    # leaving the sweep running forever with n-1 points stored.
+    smu.write(":SENS:CURR:PROT 0.1")
+    smu.write("OUTP ON")
+    for v in (0.1, 0.2, 0.3):
+        smu.query(f"VOLT {v};:READ?")
+    for n in range(3, 40):
+        levels = ",".join(repr(0.013 * k + 0.001) for k in range(n))
+        smu.write(f"VOLT:MODE LIST;:LIST:VOLT {levels};:TRIG:COUN {n};:TRIG:DEL 0.001")
+        smu.write("INIT")
+        assert int(smu.query("TRAC:POIN:ACT?")) == n
+        assert int(smu.query("STAT:OPER:COND?")) & 8 == 0  # not sweeping any more
+        smu.write("VOLT:MODE FIX")
+    smu.write("OUTP OFF")
