@@ -6,8 +6,9 @@ raises, :class:`CriticalSubscriberError` propagates to the publisher, which ends
 
 Every other subscriber has its own dispatcher thread and an unbounded queue: a slow one (a
 GUI) only delays itself, never the sweep or the other subscribers. Its exceptions are
-logged and counted, never fatal. ``batch=True`` subscribers receive lists of all events
-that queued up since their last call (one redraw per batch).
+logged and counted, never fatal. Events reach it in order, at most ``dispatch_interval_s``
+after publication (bursts are delivered together). ``batch=True`` subscribers receive
+lists of all events that queued up since their last call (one redraw per batch).
 
 Which events reach the non-critical subscribers when a critical one failed: a
 :class:`~tracer.events.Point` the critical subscribers did not accept is withheld (a point
@@ -38,14 +39,23 @@ class CriticalSubscriberError(Exception):
 
 
 class _Dispatcher:
-    """One non-critical subscriber: a queue and the thread that empties it."""
+    """One non-critical subscriber: a queue and the thread that empties it.
 
-    def __init__(self, callback: Callable[[Any], None], batch: bool, name: str):
+    After each delivery the thread pauses ``interval_s`` before looking again, so events
+    published in a burst reach it together (one wake-up per batch, not per point: the
+    sweep's worker never trades the interpreter lock with a viewer per point). ``flush``
+    and ``close`` cut the pause short."""
+
+    def __init__(self, callback: Callable[[Any], None], batch: bool, name: str,
+                 interval_s: float):
         self.callback = callback
         self.batch = batch
+        self.interval_s = interval_s
         self.errors = 0
         self._queue: deque = deque()
         self._cond = threading.Condition()
+        self._urgent = threading.Event()
+        self._waiting = False
         self._busy = False
         self._closed = False
         self._thread = threading.Thread(target=self._loop, name=name, daemon=True)
@@ -56,47 +66,62 @@ class _Dispatcher:
             if self._closed:
                 return
             self._queue.append(event)
-            self._cond.notify()
+            if self._waiting:
+                self._cond.notify()
 
     def _loop(self) -> None:
         while True:
             with self._cond:
                 while not self._queue and not self._closed:
+                    self._waiting = True
                     self._cond.wait()
-                if not self._queue and self._closed:
+                    self._waiting = False
+                if not self._queue:          # closed and drained
                     self._cond.notify_all()
                     return
-                if self.batch:
-                    items = [list(self._queue)]
-                    self._queue.clear()
-                else:
-                    items = [self._queue.popleft()]
+                items = list(self._queue)
+                self._queue.clear()
                 self._busy = True
             try:
-                for item in items:
-                    self.callback(item)
-            except Exception:   # a consumer's bug must never reach the sweep
-                self.errors += 1
-                log.exception("non-critical subscriber %r raised; continuing", self.callback)
+                if self.batch:
+                    self._deliver(items)
+                else:
+                    for item in items:
+                        self._deliver(item)
             finally:
                 with self._cond:
                     self._busy = False
                     self._cond.notify_all()
+            if self.interval_s > 0 and not self._closed:
+                self._urgent.wait(self.interval_s)
+
+    def _deliver(self, item: Any) -> None:
+        try:
+            self.callback(item)
+        except Exception:   # a consumer's bug must never reach the sweep
+            self.errors += 1
+            log.exception("non-critical subscriber %r raised; continuing", self.callback)
 
     def idle(self, timeout: float | None) -> bool:
-        with self._cond:
-            return self._cond.wait_for(lambda: not self._queue and not self._busy, timeout)
+        self._urgent.set()
+        try:
+            with self._cond:
+                return self._cond.wait_for(lambda: not self._queue and not self._busy, timeout)
+        finally:
+            self._urgent.clear()
 
     def close(self, timeout: float | None) -> None:
         with self._cond:
             self._closed = True
             self._cond.notify_all()
+        self._urgent.set()
         if threading.current_thread() is not self._thread:
             self._thread.join(timeout)
 
 
 class EventBus:
-    def __init__(self) -> None:
+    def __init__(self, *, dispatch_interval_s: float = 0.02) -> None:
+        self.dispatch_interval_s = dispatch_interval_s
         self._lock = threading.RLock()          # subscription changes
         self._publish_lock = threading.RLock()  # one event at a time, in order
         self._tokens = itertools.count(1)
@@ -115,7 +140,8 @@ class EventBus:
                 self._critical = {**self._critical, token: callback}
             else:
                 self._others = {**self._others, token: _Dispatcher(
-                    callback, batch, name=f"tracer-engine-subscriber-{token}")}
+                    callback, batch, name=f"tracer-engine-subscriber-{token}",
+                    interval_s=self.dispatch_interval_s)}
             return token
 
     def unsubscribe(self, token: int) -> None:

@@ -41,6 +41,7 @@ class EngineOptions:
     conditions_interval_s: float = 1.0    # light, temperature and protection flags during a sweep
     list_poll_interval_s: float = 0.01    # list sweep progress polls when nothing new arrived
     analysis_timeout_s: float = 120.0     # longest wait for an analysis before RunFinished
+    dispatch_interval_s: float = 0.02     # non-critical subscribers: pause between deliveries
 
 
 class Engine:
@@ -57,7 +58,7 @@ class Engine:
         self.analyzer = analyzer
         base = options or EngineOptions()
         self.options = EngineOptions(**{**base.__dict__, **option_overrides})
-        self.bus = EventBus()
+        self.bus = EventBus(dispatch_interval_s=self.options.dispatch_interval_s)
         self.safety_lock = threading.RLock()
         self._lock = threading.Lock()
         self._control: Control | None = None

@@ -4,7 +4,7 @@ A :class:`Trip` is an interlock firing: it carries a short ``cause`` code, one s
 a person, and the offending value and limit (SI). The engine raises it, makes the output
 safe, then publishes ``InterlockTripped`` from it.
 
-Compliance policy (decided here, documented in ``docs/engine.md``):
+Compliance policy (decided here, documented in ``tracer/engine/README.md``):
 
 - a reading in compliance while the step's compliance is *below* the protection limit is
   the source clamping as asked (e.g. a dark forward sweep running into its current

@@ -172,8 +172,8 @@ def _check_levels(label: str, mode: str, levels: Iterable[float], compliance: fl
 
 
 def _check_common(step: Any, label: str, add) -> None:
-    if not _finite(step.nplc) or step.nplc <= 0:
-        add(f"{label}: nplc = {step.nplc!r} must be positive")
+    if not _finite(step.nplc) or step.nplc < 0:
+        add(f"{label}: nplc = {step.nplc!r} must be >= 0 (0: the shortest integration)")
 
 
 def _check_sweep(step: pl.SweepStep, limits: pl.Limits, label: str, add) -> None:
