@@ -7,6 +7,10 @@ Order within a run::
       InterlockTripped?                                      # before the RunFinished it caused
     RunFinished                                              # always last, on every path
 
+An ``Analysis`` is computed off the sweep's thread, so it may arrive after later blocks
+have started; it always follows its own ``SweepFinished`` (match it by ``sweep_uid``) and
+always precedes ``RunFinished``. A sweep that ends aborted gets no ``Analysis``.
+
 Every event carries ``run_uid``. Points carry the SMU's raw readings: current in the
 **load** convention (into the cell's + terminal); use ``tracer.conventions`` to convert.
 ``Point.seq`` is 1-based and contiguous within a sweep; ``Point.run_seq`` is 1-based and
