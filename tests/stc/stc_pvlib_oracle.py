@@ -1,5 +1,8 @@
 """pvlib oracle for the STC tests: exact single-diode curves of CEC modules.
 
+Imported by the test modules (fixtures ``cec_modules``, ``cs5p``); kept out of a
+conftest.py so that no second module named ``conftest`` shadows another folder's.
+
 pvlib (test-only) computes the De Soto parameters (``calcparams_desoto``) of a module from
 the CEC library shipped with pvlib (``retrieve_sam('CECMod')``, SAM 2019-03-05) and the curve
 itself (``v_from_i``/``i_from_v``, Lambert W). The tracer never imports pvlib.

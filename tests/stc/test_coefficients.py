@@ -24,6 +24,7 @@ from tracer.stc import (
     determine_series_resistance_procedure2,
     determine_temperature_coefficients,
 )
+from stc_pvlib_oracle import cec_modules, cs5p  # noqa: F401  (pytest fixtures)
 
 # chosen "true" coefficients, of the size the reference notes report for the CS5P-220M
 # (Rs = 1.284 ohm, kappa = 0.0046 ohm/K, a = 0.0451: notes 1.2, 1.5)

@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 
 from tracer.stc import curve_figures
+from stc_pvlib_oracle import cec_modules, cs5p  # noqa: F401  (pytest fixtures)
 
 utils = pytest.importorskip("pvlib.ivtools.utils")
 

@@ -8,6 +8,7 @@ import pytest
 from tracer.fit import fit_curve
 from tracer.model import DoubleDiode, SingleDiode, thermal_voltage
 from tracer.stc import translate_diode_model
+from stc_pvlib_oracle import cec_modules, cs5p  # noqa: F401  (pytest fixtures)
 
 CONDITIONS = [(600, 15), (800, 45), (1100, 60), (700, 35)]
 

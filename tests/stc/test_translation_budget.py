@@ -18,6 +18,7 @@ from tracer.stc import (
     translate_to_stc,
 )
 from tracer.stc.uncertainty import BudgetEntry, UncertaintyBudget, rectangular
+from stc_pvlib_oracle import cec_modules, cs5p  # noqa: F401  (pytest fixtures)
 
 # procedure 1 coefficients of the CS5P-220M of the size the reference notes report (1.5)
 P1 = Procedure1Coefficients(alpha_a_per_k=0.004526, beta_v_per_k=-0.2420,

@@ -37,6 +37,7 @@ from tracer.stc import (
     translate_procedure3,
     translate_to_stc,
 )
+from stc_pvlib_oracle import cec_modules, cs5p  # noqa: F401  (pytest fixtures)
 
 CONDITIONS = [(600, 15), (700, 35), (800, 45), (900, 25), (1000, 50), (1100, 60), (1100, 15),
               (600, 60)]
