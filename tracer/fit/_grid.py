@@ -372,9 +372,9 @@ def grid_search(voltage_v, current_a, weights, ns_vt_v, *, n_diodes, dark, rs_ma
         chosen.append(standard)
     out = []
     for k in chosen:
+        start = {key: val[k] for key, val in sol.items()}
         if ZOOM_LEVELS:
-            a_k, rs_k, s = _refine(red, a[k], rs[k], log_step, rs_step[k],
-                                   {key: val[k] for key, val in sol.items()})
+            a_k, rs_k, s = _refine(red, a[k], rs[k], log_step, rs_step[k], start)
         else:
             a_k, rs_k, s = a[k], float(rs[k]), {key: val[k] for key, val in sol.items()}
         score = red.score(a_k, rs_k, s["iph"], s["i0"], s["g"])

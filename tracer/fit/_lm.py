@@ -23,12 +23,15 @@ def _weights_and_cost(r, loss, f_scale):
 
 
 def bounded_lm(fun_jac, x0, lb, ub, x_scale, *, loss="linear", f_scale=1.0, max_iter=100,
-               ftol=1e-10, xtol=1e-10):
+               ftol=1e-10, xtol=1e-10, max_eval=None):
     """Minimise sum(rho(r_k^2)) with r, J = fun_jac(x), lb <= x <= ub.
 
     Returns the final x. ``loss`` is ``"linear"`` or ``"soft_l1"`` (handled by iterative
-    reweighting with the weights sqrt(rho'(z)) of the current point).
+    reweighting with the weights sqrt(rho'(z)) of the current point). At most
+    ``max_eval`` calls of ``fun_jac`` (default: 2 * max_iter).
     """
+    max_eval = 2 * max_iter if max_eval is None else max_eval
+    evals = 1
     x = np.clip(np.asarray(x0, dtype=float), lb, ub)
     r, jac = fun_jac(x)
     if not np.all(np.isfinite(r)):
@@ -52,7 +55,7 @@ def bounded_lm(fun_jac, x0, lb, ub, x_scale, *, loss="linear", f_scale=1.0, max_
         diag[diag <= 0] = 1.0
         gf = g[free]
         accepted = False
-        while lam <= LAMBDA_MAX:
+        while lam <= LAMBDA_MAX and evals < max_eval:
             try:
                 step = np.linalg.solve(af + lam * np.diag(diag), -gf)
             except np.linalg.LinAlgError:
@@ -62,6 +65,7 @@ def bounded_lm(fun_jac, x0, lb, ub, x_scale, *, loss="linear", f_scale=1.0, max_
             x_new[free] += step * x_scale[free]
             x_new = np.clip(x_new, lb, ub)
             r_new, jac_new = fun_jac(x_new)
+            evals += 1
             if np.all(np.isfinite(r_new)):
                 sw_new, cost_new = _weights_and_cost(r_new, loss, f_scale)
                 if cost_new < cost:

@@ -17,10 +17,14 @@ from tracer.fit.errors import FitError
 # Window half-widths (fractions of the estimated Voc / Isc) for the near-axis fits.
 ISC_WINDOW_OF_VOC = 0.10
 VOC_WINDOW_OF_ISC = 0.05
-# Window around the highest-power point, as fractions of the raw Vmp and Imp
-# (the ASTM E1036 defaults, 0.75 ... 1.15).
+# Window around the highest-power point, as fractions of the raw Vmp and Imp: the
+# ASTM E1036 defaults (0.75 ... 1.15) are the widest; dense curves use the narrowest of
+# the nested windows below that still holds MPP_MIN_POINTS points, which keeps the
+# polynomial's bias small where the data allow it.
 MPP_WINDOW = (0.75, 1.15)
+MPP_NARROW_HALF_WIDTHS = (0.02, 0.05, 0.10)
 MPP_POLY_ORDER = 4
+MPP_MIN_POINTS = 2 * MPP_POLY_ORDER + 3
 MIN_AXIS_POINTS = 3
 
 
@@ -108,6 +112,11 @@ def figures_from_data(voltage_v, current_a) -> DataFigures:
     lo, hi = MPP_WINDOW
     sel = np.flatnonzero((v >= lo * vmp_raw) & (v <= hi * vmp_raw)
                          & (i >= lo * imp_raw) & (i <= hi * imp_raw))
+    for half in MPP_NARROW_HALF_WIDTHS:
+        narrow = sel[np.abs(v[sel] / vmp_raw - 1.0) <= half]
+        if np.unique(v[narrow]).size >= MPP_MIN_POINTS:
+            sel = narrow
+            break
     vmp, pmax = vmp_raw, float(power[k])
     n_distinct = np.unique(v[sel]).size
     if n_distinct >= 3:

@@ -2,19 +2,25 @@
 
 Method
 ------
-1. Reduced search. For trial values of the nonlinear parameters (ideality factors and
-   series resistance) the remaining ones (Iph, I0s, 1/Rsh) enter the diode equation,
-   evaluated at the measured current, linearly; a nonnegative linear least-squares
-   solve gives them for a whole grid of trials at once (:mod:`tracer.fit._grid`).
-2. Polish. The best few grid minima start a bounded trust-region least-squares
-   (``scipy.optimize.least_squares``) over *all* parameters on the true current
-   residual: measured current minus the model current solved exactly (by
-   :mod:`tracer.model`) at each measured voltage. Saturation currents are fitted as
-   ln I0, the shunt as a conductance G = 1/Rsh >= 0. Dark curves (Iph = 0) are fitted
-   on ln|I| instead, so that every decade of current counts.
-3. Uncertainty. Covariance s^2 (J^T J)^-1 at the optimum (J the Jacobian of the
-   residuals, s^2 their variance), propagated to the reported parameters.
-4. ``model="auto"`` fits both models and keeps the one with the lower Bayesian
+1. Reduced search (:mod:`tracer.fit._grid`). For trial values of the nonlinear
+   parameters (ideality factors and series resistance) the others (Iph, I0s, 1/Rsh)
+   enter the diode equation, evaluated at the measured current, linearly: a
+   nonnegative linear least-squares solve gives them for a whole grid of trials at
+   once. The grid's competitive local minima are refined by zoomed grids.
+2. Linearised rounds. From the best start, the model current is solved exactly once
+   per round; around it the current is linearised in the parameters (one Newton step
+   of the implicit equation), and that explicit stand-in is minimised by variable
+   projection (:mod:`tracer.fit._varpro`). Rounds stop when the true sum of squares
+   stops falling. A runner-up start is taken only if its estimated minimum beats the
+   incumbent's true one.
+3. Polish. A bounded trust-region least squares (``scipy.optimize.least_squares``)
+   over *all* parameters on the true residual: measured current minus the model
+   current solved exactly by :mod:`tracer.model` at each measured voltage. Saturation
+   currents are fitted as ln I0, the shunt as a conductance G = 1/Rsh >= 0. Dark curves
+   (Iph = 0) are fitted on ln|I| instead, so that every decade of current counts.
+4. Uncertainty. Covariance s^2 (J^T J)^-1 at the optimum (J the Jacobian of the
+   residuals, s^2 = SSR/(N - p)), propagated to the reported parameters.
+5. ``model="auto"`` fits both models and keeps the one with the lower Bayesian
    information criterion, BIC = N ln(SSR/N) + k ln N (Schwarz 1978).
 """
 from __future__ import annotations
@@ -27,7 +33,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import least_squares
 
-from tracer.fit import _grid
+from tracer.fit import _grid, _varpro
 from tracer.fit._checks import as_curve
 from tracer.fit._lm import bounded_lm
 from tracer.fit._layout import Layout, current_jacobian, equation_terms, model_current
@@ -43,15 +49,17 @@ IDEALITY_BOUNDS = (0.2, 20.0)
 LOG_I0_SPAN = 90.0
 #: Linearised-model rounds (one exact solve each), their stopping rules, and the
 #: iterations of the cheap inner minimisation per round.
-_SURROGATE_ROUNDS = 30
+_SURROGATE_ROUNDS = 10
 _SURROGATE_XTOL = 1e-10
-_SURROGATE_FTOL = 1e-10
 _INNER_TOL = 1e-10
-_INNER_MAX_ITER = 40
+_INNER_MAX_ITER = 30
 #: Final exact polish (scipy.optimize.least_squares) tolerances and budget.
 _TOL = 1e-14
-_FTOL = 1e-10
-_MAX_NFEV = {1: 200, 2: 80}
+#: Stop once a round lowers the sum of squares by less than this fraction of the
+#: residual variance s^2 = SSR/(N - p): far below any statistical meaning (a change of
+#: 1e-6 in chi-square), and on noise-free data still a relative 1e-6/(N - p) per step.
+_STAT_FTOL = 1e-6
+_MAX_NFEV = {1: 100, 2: 30}
 #: Relative size of a singular value of the scaled Jacobian treated as zero.
 _SINGULAR_RTOL = 1e-11
 
@@ -220,11 +228,17 @@ def _robust_scale(r: np.ndarray) -> float:
     return max(1.4826 * mad, 1e-300)
 
 
+def _ftol(objective: _Objective) -> float:
+    """Relative cost-change tolerance equivalent to _STAT_FTOL of the residual variance."""
+    dof = max(objective.v.size - objective.layout.size, 1)
+    return max(_STAT_FTOL / dof, 1e-15)
+
+
 def _polish(objective: _Objective, theta0, lb, ub, x_scale, loss, f_scale, max_nfev):
     return least_squares(
         objective.residual, theta0, jac=objective.jacobian, bounds=(lb, ub), method="trf",
-        x_scale=x_scale, loss=loss, f_scale=f_scale, ftol=_FTOL, xtol=_TOL, gtol=_TOL,
-        max_nfev=max_nfev,
+        x_scale=x_scale, loss=loss, f_scale=f_scale, ftol=_ftol(objective), xtol=_TOL,
+        gtol=_TOL, max_nfev=max_nfev,
     )
 
 
@@ -265,6 +279,24 @@ def _sort_diodes(layout: Layout, theta, cov):
     return theta[perm], cov[np.ix_(perm, perm)]
 
 
+def _projected_step(problem: _Problem, layout: Layout, theta, eval_current, weights, target,
+                    lb, ub, x_scale):
+    """Minimise |weights * F(theta; V, eval_current) - target| by variable projection
+    (linear parameters solved exactly, Levenberg-Marquardt on a_k and Rs)."""
+    nonlinear = layout.a_indices() + [layout.rs_index]
+    vp = _varpro.ProjectedProblem(problem.v_fit, eval_current, weights, target,
+                                  layout.n_diodes, layout.dark)
+    alpha, beta = _varpro.minimise(vp, theta[nonlinear], lb[nonlinear], ub[nonlinear],
+                                   x_scale[nonlinear], max_iter=_INNER_MAX_ITER,
+                                   tol=_INNER_TOL)
+    off = layout.offset
+    i0 = beta[off:off + layout.n_diodes]
+    with np.errstate(divide="ignore"):
+        log_i0 = np.log(i0)
+    new = layout.pack(0.0 if layout.dark else beta[0], log_i0, alpha[:-1], alpha[-1], beta[-1])
+    return np.clip(new, lb, ub)
+
+
 def _surrogate_polish(problem: _Problem, objective: _Objective, theta0, lb, ub, x_scale, *,
                       rounds: int | None = None):
     """Newton-linearised model current, minimised cheaply, relinearised until it stops.
@@ -292,13 +324,17 @@ def _surrogate_polish(problem: _Problem, objective: _Objective, theta0, lb, ub, 
             w = 1.0 / denom
             base = i_j - i_meas
 
-        def fun_jac(t, i_j=i_j, w=w, base=base):
-            f, jac, _ = equation_terms(layout, t, v, i_j)
-            return base + f * w, jac * w[:, None]
+        if problem.loss == "linear":
+            proposal = _projected_step(problem, layout, theta, i_j, w, w * i_j - base,
+                                       lb, ub, x_scale)
+        else:
+            def fun_jac(t, i_j=i_j, w=w, base=base):
+                f, jac, _ = equation_terms(layout, t, v, i_j)
+                return base + f * w, jac * w[:, None]
 
-        proposal = bounded_lm(fun_jac, theta, lb, ub, x_scale, loss=problem.loss,
-                              f_scale=objective.f_scale, max_iter=_INNER_MAX_ITER,
-                              ftol=_INNER_TOL, xtol=_INNER_TOL)
+            proposal = bounded_lm(fun_jac, theta, lb, ub, x_scale, loss=problem.loss,
+                                  f_scale=objective.f_scale, max_iter=_INNER_MAX_ITER,
+                                  ftol=_INNER_TOL, xtol=_INNER_TOL)
         step = proposal - theta
         for _halving in range(4):
             new_cost = objective.cost(theta + step)
@@ -311,7 +347,7 @@ def _surrogate_polish(problem: _Problem, objective: _Objective, theta0, lb, ub, 
         theta = theta + step
         drop = cost - new_cost
         cost = new_cost
-        if moved <= _SURROGATE_XTOL or drop <= _SURROGATE_FTOL * cost:
+        if moved <= _SURROGATE_XTOL or drop <= _ftol(objective) * cost:
             break
     return theta
 
