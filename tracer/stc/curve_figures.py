@@ -29,6 +29,7 @@ ISC_POINTS = 3
 MP_FIT_ORDER = 4
 MP_CURRENT_WINDOW = (0.75, 1.15)
 MP_VOLTAGE_WINDOW = (0.75, 1.15)
+_ABSURD = 1e100   # |V| or |I| beyond this is junk, not a curve (keeps V*I finite)
 
 
 @dataclass(frozen=True)
@@ -58,6 +59,8 @@ def _clean(voltage_v, current_a) -> tuple[np.ndarray, np.ndarray]:
     v, i = v[keep], i[keep]
     if v.size < 5:
         raise ValueError(f"too few finite points for curve figures ({v.size} < 5)")
+    if max(float(np.max(np.abs(v))), float(np.max(np.abs(i)))) > _ABSURD:
+        raise ValueError("voltages or currents beyond any bench range (|x| > 1e100)")
     return v, i
 
 
