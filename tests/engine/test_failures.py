@@ -369,6 +369,29 @@ def test_watchdog_closes_the_run_if_the_worker_never_returns(fake, make_engine):
     assert not fake.smu.output_on
 
 
+def test_watchdog_covers_a_stalled_critical_subscriber(fake):
+    """A logbook that stops answering with the output on: the watchdog switches the output
+    off while it is still stuck; when it returns the run ends naming the watchdog."""
+    off_while_stuck = []
+
+    def stalling_logbook(event):
+        if isinstance(event, ev.Point) and event.run_seq == 3:
+            deadline = time.monotonic() + 3.0
+            while fake.smu.output_on and time.monotonic() < deadline:
+                time.sleep(0.005)
+            off_while_stuck.append(not fake.smu.output_on)
+
+    engine = Engine(bench_for(fake), **FAST)
+    rec = Recorder()
+    engine.subscribe(stalling_logbook, critical=True)
+    engine.subscribe(rec, critical=True)
+    finished = engine.run(make_plan(dark_sweep(points=20), checks=pl.Checks(watchdog_s=0.1)))
+    engine.close()
+    assert off_while_stuck == [True]
+    assert_safe_end(fake, finished, rec.events, cause="watchdog")
+    assert "critical subscriber" in finished.reason
+
+
 def test_list_sweep_that_stops_progressing_trips(fake, make_engine):
     fake.smu.list_rate = 0
     engine, critical, _ = make_engine(fake)

@@ -23,7 +23,7 @@ from .bench import Bench
 from .bus import EventBus
 from .planning import check_plan
 from .records import SweepRecord
-from .runner import Control, Outcome, Runner
+from .runner import CRITICAL_SUBSCRIBER, Control, Outcome, Runner
 
 log = logging.getLogger("tracer.engine")
 
@@ -133,11 +133,15 @@ class Engine:
                        message: str = "emergency stop by the operator") -> bool:
         """From any thread: level 0 and output off now, on this thread (not waiting for the
         worker), read back; the worker then ends the run as aborted naming ``cause``.
-        Also works with no run in progress. Returns True if the output was read back off."""
+        Also works with no run in progress. Returns True if the output was read back off.
+        Blocks at most for one make-safe sequence of the driver (bounded by its time-out;
+        longer only while another thread is inside an exchange with the SMU)."""
         control = self._control
         if control is not None and not control.done.is_set():
             control.request_abort(cause, message)
-        verified = self.secure_output()
+        # one attempt here, so the caller (a GUI thread) is held as briefly as possible;
+        # the worker retries when it ends the run
+        verified = self.secure_output(attempts=1)
         self.last_emergency_verified = verified
         return verified
 
@@ -174,12 +178,13 @@ class Engine:
         _ENGINES.discard(self)
 
     # ------------------------------------------------------------------ safety
-    def secure_output(self) -> bool:
-        """Abort, level 0, output off, read back; retried after a reconnect. Never raises.
-        True only when the output was read back off."""
+    def secure_output(self, attempts: int = SAFE_ATTEMPTS) -> bool:
+        """Abort, level 0, output off, read back (the driver's ``make_safe``; if that fails,
+        the explicit sequence); retried after a reconnect. Never raises. True only when the
+        output was read back off."""
         smu = self.bench.smu
         with self.safety_lock:
-            for attempt in range(SAFE_ATTEMPTS):
+            for attempt in range(max(1, min(attempts, SAFE_ATTEMPTS))):
                 if SAFE_RETRY_PAUSE_S[attempt]:
                     time.sleep(SAFE_RETRY_PAUSE_S[attempt])
                 try:
@@ -203,9 +208,10 @@ class Engine:
             return False
 
     def _watch(self, runner: Runner, control: Control) -> None:
-        """Watchdog: an instrument call in flight longer than its deadline trips the run
-        (output made safe from here, since the worker is stuck); if the worker is still
-        stuck one more watchdog period later, the run is closed from here too."""
+        """Watchdog: an instrument call (or a critical subscriber) in flight longer than its
+        deadline trips the run (output made safe from here, since the worker is stuck); if
+        an instrument call is still stuck one more watchdog period later, the run is closed
+        from here too."""
         period = control.watchdog_s
         tick = max(0.005, min(0.1, period / 20.0))
         tripped_at: float | None = None
@@ -220,9 +226,10 @@ class Engine:
                     log.error("watchdog: %s silent for more than %g s", label, deadline)
                     control.request_abort("watchdog", f"{label} gave no answer within {deadline:g} s")
                     stuck = inflight
-                    verified = self.secure_output()
+                    verified = self.secure_output(attempts=1)
                     tripped_at = time.monotonic()
-            elif control.inflight is stuck and now - tripped_at > period:
+            elif (control.inflight is stuck and stuck[0] != CRITICAL_SUBSCRIBER
+                  and now - tripped_at > period):
                 cause, message = control.abort or ("watchdog", "instrument silent")
                 log.error("watchdog: the worker is still stuck; closing run %s", runner.run_uid)
                 try:

@@ -69,6 +69,9 @@ LIGHT_FAILURE_FRACTION = 0.5
 _TEMPERATURE_SYMPTOMS = ("compliance", "current-limit", "voltage-limit", "power-limit",
                          "reverse-bias", "bad-reading", "instrument-error")
 
+# The watchdog's label for a critical subscriber (the logbook) that does not return: the
+# output is made safe, but the run is not closed from outside (the subscriber holds the bus).
+CRITICAL_SUBSCRIBER = "the critical subscriber"
 _SET_MEASURE = "smu.set_level_and_measure"
 _SET = "smu.set_level"
 _MEASURE = "smu.measure"
@@ -297,7 +300,12 @@ class Runner:
         with ctl.emit_lock:
             if ctl.sealed_by is not None and ctl.sealed_by != threading.get_ident():
                 return   # the run was closed by the watchdog while this thread was stuck
-            self.engine.bus.publish(event, closing=closing)
+            outer = ctl.inflight       # the logbook stalling with the output on is watched too
+            ctl.inflight = (CRITICAL_SUBSCRIBER, time.monotonic(), self.watchdog_s)
+            try:
+                self.engine.bus.publish(event, closing=closing)
+            finally:
+                ctl.inflight = outer
 
     def _checkpoint(self) -> None:
         ctl = self.control
