@@ -217,17 +217,18 @@ class CurvePlot(TimedPlotWidget):
             vb.enableAutoRange()
             return
         xs, ys, ps = [], [], []
+        # xData/yData: the data as given (getData() is clipped to the present view)
         for items in self.items.values():
-            x, y = items.current.getData()
+            x, y = items.current.xData, items.current.yData
             if x is not None and len(x):
                 xs.append(x)
                 ys.append(y)
             if items.power is not None:
-                _, p = items.power.getData()
+                p = items.power.yData
                 if p is not None and len(p):
                     ps.append(p)
         for item in self.overlay_items.values():
-            x, y = item.getData()
+            x, y = item.xData, item.yData
             if x is not None and len(x):
                 xs.append(x)
                 ys.append(y)

@@ -327,7 +327,8 @@ class RunModel:
         for event in events:
             self.events_seen += 1
             if isinstance(event, ev.Point):
-                if batch and batch[-1].sweep_uid != event.sweep_uid:
+                if batch and (batch[-1].sweep_uid != event.sweep_uid
+                              or batch[-1].run_uid != event.run_uid):
                     self._points(batch)
                     batch = []
                 batch.append(event)
