@@ -146,8 +146,11 @@ FIGURES: tuple[Figure, ...] = (
            ours=Side("gui_worst_frame_ms", "ms")),
 )
 
-#: Figures without a goal, printed for information (benchmarks of the simulator and drivers).
+#: Figures without a goal, printed for information.
 INFO_FIGURES: tuple[Figure, ...] = (
+    Figure("analysis_single_only_ms", "analysis",
+           "the same 1,000 points analysed with the single-diode fit only, no translation",
+           "ms", None, ours=Side("analysis_single_only_ms", "ms")),
     Figure("simulator_read_vs_echo_ratio", "simulator",
            "simulated SMU READ? rate / bare TCP echo rate (pyvisa-py)", "", None,
            ours=Side("simulator_read_qps", "queries/s"),
@@ -270,7 +273,8 @@ def format_report(report: Mapping[str, Any]) -> str:
            f"{report.get('date_utc', '')}",
            f"machine: {machine.get('cores')} cores ({machine.get('cpu') or 'cpu unknown'}), "
            f"{machine.get('memory_gib', '?')} GiB, {machine.get('system', '')}, "
-           f"Python {machine.get('python', '')}",
+           f"Python {machine.get('python', '')}, load average "
+           f"{machine.get('load_average_1min_at_start', '?')} at the start",
            "", fmt(header), fmt(tuple("-" * w for w in widths))]
     out += [fmt(r) for r in lines]
     out.append("")
