@@ -97,17 +97,20 @@ class Row:
 
 #: The figures with goals, in the order the report prints them.
 FIGURES: tuple[Figure, ...] = (
-    Figure("model_eval_ratio", "model", "single-diode current, 1,000,000 points: time ours/pvlib",
-           "", Goal("<=", 1.0),
+    Figure("model_eval_ratio", "model",
+           "single-diode current, 1,000,000 points (100,000 quick): time ours/pvlib", "",
+           Goal("<=", 1.0),
            ours=Side("ours_s", "ms", 1e3), baseline=Side("pvlib_s", "ms", 1e3,
                                                          "pvlib i_from_v (lambertw)"),
            ratio_key="model_eval_ratio", figure_is_ratio=True),
-    Figure("fit_single_ms", "fit", "single-diode fit, median of noisy 500-point curves",
-           "ms", Goal("<", 20.0),
+    Figure("fit_single_ms", "fit",
+           "single-diode fit, median of 100 (20 quick) noisy 500-point curves", "ms",
+           Goal("<", 20.0),
            ours=Side("fit_single_ms", "ms"),
            baseline=Side("baseline_sandia_ms", "ms", 1.0, "pvlib fit_sandia_simple")),
-    Figure("fit_double_ms", "fit", "double-diode fit, median of noisy 500-point curves",
-           "ms", Goal("<", 100.0),
+    Figure("fit_double_ms", "fit",
+           "double-diode fit, median of 100 (20 quick) noisy 500-point curves", "ms",
+           Goal("<", 100.0),
            ours=Side("fit_double_ms", "ms"),
            baseline=Side("baseline_sandia_ms", "ms", 1.0,
                          "pvlib fit_sandia_simple (single-diode)")),
@@ -279,7 +282,8 @@ def format_report(report: Mapping[str, Any]) -> str:
     out += [fmt(r) for r in lines]
     out.append("")
     out.append(f"goals met: {report.get('goals_met')} of {report.get('goals_total')} "
-               f"({report.get('goals_measured')} measured); total {report.get('total_s') or 0:.0f} s")
+               f"({report.get('goals_measured')} measured); "
+               f"total {report.get('total_s') or 0:.0f} s")
     out.append("ratio = ours / baseline, both measured in this run; the goal applies to the "
                "ratio where the figure is one.")
     legend = []

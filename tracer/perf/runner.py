@@ -155,7 +155,8 @@ def run_one(name: str, target: str, *, quick: bool, timeout_s: float,
             outcome["error"] = (f"the benchmark process ended with status {proc.returncode} "
                                 f"without a result: {last[0]}")
     if log is not None:
-        state = "ok" if outcome["status"] == "ok" else f"{outcome['status'].upper()}: {outcome['error']}"
+        state = ("ok" if outcome["status"] == "ok"
+                 else f"{outcome['status'].upper()}: {outcome['error']}")
         log(f"  {name:<10} {outcome['seconds']:6.1f} s  {state}")
     return outcome
 
