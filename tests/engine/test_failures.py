@@ -6,6 +6,7 @@ kinds of exception (instrument error, lost link, software bug, KeyboardInterrupt
 """
 from __future__ import annotations
 
+import functools
 import threading
 import time
 
@@ -57,6 +58,7 @@ def _full_plan():
                                                         watchdog_s=2.0))
 
 
+@functools.cache
 def _clean_call_log():
     fake = make_fake_bench(list_rate=4)
     engine = Engine(bench_for(fake), **FASTER)
@@ -75,7 +77,6 @@ def _clean_call_log():
 
 
 FASTER = {**FAST, "poll_interval_s": 0.0001}
-CLEAN_CALLS = _clean_call_log()
 EXCEPTIONS = {
     "instrument-error": lambda: FakeInstrumentError('-113,"Undefined header"'),
     "link-lost": lambda: FakeLinkLost("timeout"),
@@ -84,24 +85,27 @@ EXCEPTIONS = {
 }
 _EXPECTED = {"instrument-error": ev.RUN_ABORTED, "link-lost": ev.RUN_ABORTED,
              "software-error": ev.RUN_FAILED, "keyboard-interrupt": ev.RUN_ABORTED}
-# The closing sequence itself (make_safe etc.) is exercised separately below.
-_INJECTABLE = [c for c in CLEAN_CALLS if c[1] not in ("make_safe",)]
+
+
+def _injectable():
+    """Every call of the clean run except the closing make_safe (exercised separately)."""
+    return [c for c in _clean_call_log() if c[1] not in ("make_safe",)]
 
 
 def test_the_full_plan_exercises_every_smu_method():
-    names = {name for who, name, _ in CLEAN_CALLS if who == "FakeSourceMeter"}
+    names = {name for who, name, _ in _clean_call_log() if who == "FakeSourceMeter"}
     assert names >= {"configure", "read_compliance", "set_overvoltage_protection",
                      "read_overvoltage_protection", "set_level", "measure",
                      "set_level_and_measure", "output", "output_is_on", "protection_tripped",
                      "interlock_open", "load_list", "start_list", "list_points_done",
                      "fetch_list", "make_safe"}
-    assert len(_INJECTABLE) > 100
+    assert len(_injectable()) > 100
 
 
 @pytest.mark.parametrize("kind", list(EXCEPTIONS))
 def test_an_exception_at_every_call_ends_safe(kind):
     failures = []
-    for who, name, nth in _INJECTABLE:
+    for who, name, nth in _injectable():
         fake = make_fake_bench(list_rate=4)
         target = {type(i).__name__: i for i in fake.instruments}[who]
         target.inject(name, at=nth, exc=EXCEPTIONS[kind]())

@@ -61,6 +61,9 @@ MPP_SEARCH_POINTS = 21
 SETTLED_READINGS = 3
 # Most list readings fetched in one query (keeps one reply well under the 1 MiB line limit).
 LIST_CHUNK = 1000
+# The longer power-line cycle of the two mains frequencies [s]: an integration of NPLC
+# cycles lasts at most NPLC times this, which the watchdog allows on top of its period.
+LONGEST_LINE_CYCLE_S = 1.0 / 50.0
 # A lamp delivering less than this fraction of its set irradiance (by the calibrated
 # reference cell) has failed; smaller deviations are left to the analysis (our design).
 LIGHT_FAILURE_FRACTION = 0.5
@@ -280,6 +283,7 @@ class Runner:
         self.pending_point: tuple[_OpenSweep, float, float, float, bool, float] | None = None
         self.arm_conditions: dict[str, float] | None = None
         self.next_periodic = math.inf
+        self.reading_deadline_s = self.watchdog_s
         self.analyses = (AnalysisQueue(engine.analyzer, run_uid)
                          if engine.analyzer is not None else None)
         self.closed = False
@@ -529,6 +533,7 @@ class Runner:
         then switch the output on at ``level``."""
         smu = self.bench.smu
         ovp = self.plan.limits.voltage_v
+        self.reading_deadline_s = self.watchdog_s + nplc * LONGEST_LINE_CYCLE_S
         self._io("smu.configure", smu.configure, source_mode=mode, compliance=compliance,
                  nplc=nplc, four_wire=four_wire)
         readback = self._io("smu.read_compliance", smu.read_compliance)
@@ -755,13 +760,14 @@ class Runner:
         ctl = self.control
         io = self._io
         set_and_measure = smu.set_level_and_measure
+        deadline = self.reading_deadline_s
         for level in levels:
             if settle_s > 0:
                 io(_SET, smu.set_level, level)
                 self._sleep(settle_s)
-                reading = io(_MEASURE, smu.measure)
+                reading = io(_MEASURE, smu.measure, deadline_s=deadline)
             else:
-                reading = io(_SET_MEASURE, set_and_measure, level)
+                reading = io(_SET_MEASURE, set_and_measure, level, deadline_s=deadline)
             self._accept(sweep, level, reading, guard)
             if ctl.abort is not None or ctl.stop_requested:
                 self._checkpoint()
@@ -804,6 +810,8 @@ class Runner:
         io("smu.start_list", smu.start_list)
         fetched = 0
         last_progress = time.monotonic()
+        # no new reading for longer than one point can take, plus the watchdog period
+        stall_s = self.watchdog_s + step.settle_s + step.nplc * LONGEST_LINE_CYCLE_S
         while fetched < total:
             done = min(int(io("smu.list_points_done", smu.list_points_done)), total)
             if done > fetched:
@@ -826,9 +834,9 @@ class Runner:
                 last_progress = time.monotonic()
                 self._checkpoint()
             else:
-                if time.monotonic() - last_progress > self.watchdog_s:
+                if time.monotonic() - last_progress > stall_s:
                     raise Trip("watchdog", f"the list sweep made no progress for "
-                               f"{self.watchdog_s:g} s ({fetched} of {total} readings)")
+                               f"{stall_s:g} s ({fetched} of {total} readings)")
                 self._sleep(self.options.list_poll_interval_s)
             if sweep is not None and time.monotonic() >= self.next_periodic:
                 self._periodic(sweep)
@@ -843,7 +851,7 @@ class Runner:
         guard = PointGuard(self.plan.limits, source_mode="current", compliance=compliance_v)
         self._arm("current", compliance_v, nplc, four_wire, light=light, level=0.0)
         self.arm_conditions = None
-        reading = self._io(_MEASURE, smu.measure)
+        reading = self._io(_MEASURE, smu.measure, deadline_s=self.reading_deadline_s)
         trip = guard.check(float(reading.voltage_v), float(reading.current_a),
                            bool(reading.in_compliance))
         if trip is not None:
@@ -884,7 +892,8 @@ class Runner:
                                  compliance=step.compliance, light=step.light, name=step.name,
                                  extra={"hold_mode": step.mode, "level": level})
         self._timed_series(sweep, step.duration_s, step.interval_s,
-                           lambda: (level, self._io(_MEASURE, smu.measure)), guard)
+                           lambda: (level, self._io(_MEASURE, smu.measure,
+                                                     deadline_s=self.reading_deadline_s)), guard)
         self._finish_sweep(sweep)
         self._disarm()
 
@@ -915,7 +924,8 @@ class Runner:
 
         def measure() -> tuple[float, Any]:
             v = state["v"]
-            return v, self._io(_SET_MEASURE, set_and_measure, v)
+            return v, self._io(_SET_MEASURE, set_and_measure, v,
+                               deadline_s=self.reading_deadline_s)
 
         def after(setpoint: float, reading: Any) -> None:
             power = float(reading.voltage_v) * generator_current(float(reading.current_a))
