@@ -10,7 +10,7 @@ with its error text under ``errors``; details of every benchmark under ``benchma
 
 A benchmark that fails, hangs or is missing is reported (its figures null, the reason
 given); the command still exits 0. Exit status: 0 report made, 1 the JSON file could not be
-written, 2 bad arguments. Sizes: full (the default; several minutes) and ``--quick``
+written, 2 bad arguments, 130 interrupted (the running benchmark is ended first). Sizes: full (the default; several minutes) and ``--quick``
 (every benchmark's quick size: under two minutes on two cores).
 
 The benchmarks other than the analysis latency live in the source checkout's
@@ -27,6 +27,7 @@ from typing import TextIO
 
 EXIT_OK = 0
 EXIT_FAILED = 1
+EXIT_INTERRUPTED = 130
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -92,8 +93,13 @@ def run(args: argparse.Namespace, out: TextIO | None = None, err: TextIO | None 
         print(line, file=err, flush=True)
 
     log(f"tracer bench: {size} run, one benchmark at a time")
-    report = run_report(size, benchmark_dir=args.bench_dir, only=only, timeout_s=args.timeout,
-                        command=_command(args), log=log, stream_output=args.verbose)
+    try:
+        report = run_report(size, benchmark_dir=args.bench_dir, only=only,
+                            timeout_s=args.timeout, command=_command(args), log=log,
+                            stream_output=args.verbose)
+    except KeyboardInterrupt:          # the running benchmark was ended by run_report
+        print("tracer bench: interrupted; no report", file=err)
+        return EXIT_INTERRUPTED
     print(format_report(report), file=table_out, flush=True)
     if args.json:
         text = json.dumps(report, indent=2, allow_nan=False)

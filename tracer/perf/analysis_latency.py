@@ -26,7 +26,6 @@ from __future__ import annotations
 
 import statistics
 import tempfile
-import threading
 import time
 from pathlib import Path
 from typing import Any
@@ -76,14 +75,13 @@ class _Stamps:
     """Critical subscriber: wall-clock stamps of the last Point and of the Analysis."""
 
     def __init__(self) -> None:
+        self.reset()
+
+    def reset(self) -> None:
         self.last_point_s: float | None = None
         self.analysis_s: float | None = None
         self.analysis: Any = None
         self.points = 0
-        self.done = threading.Event()
-
-    def reset(self) -> None:
-        self.__init__()
 
     def __call__(self, event: Any) -> None:
         from tracer import events as ev
