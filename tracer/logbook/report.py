@@ -158,6 +158,9 @@ def format_with_uncertainty(value: float | None, uncertainty: float | None, *,
     v, uu = value * scale, None if u is None else abs(u * scale)
     if uu is None or uu == 0:
         return f"{v:.6g}{unit}"
+    if max(abs(v), uu) >= 1e6 or uu > 10 * abs(v):
+        # an undetermined parameter or a huge number: fixed-point digits would mislead
+        return f"{v:.4g} ± {uu:.2g}{unit}"
     decimals = max(0, 1 - int(math.floor(math.log10(uu))))
     return f"{v:.{decimals}f} ± {uu:.{decimals}f}{unit}"
 
