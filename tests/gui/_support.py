@@ -43,7 +43,12 @@ def protocol_text(name: str = "gui-quick", *, points: int = 60, settle: float = 
     return _BASE.format(name=name, points=points, settle=settle, sample=sample)
 
 
-def wait_finished(qtbot, window, timeout=30_000):
-    qtbot.waitUntil(lambda: window.model.finished is not None
-                    and window._finished_shown == window.model.finished.run_uid, timeout=timeout)
+def wait_finished(qtbot, window, timeout=30_000, run_uid=None):
+    """Wait until the window has drawn the end of the run (``run_uid``, else the last)."""
+    def shown():
+        fin = window.model.finished
+        return (fin is not None and window._finished_shown == fin.run_uid
+                and (run_uid is None or fin.run_uid == run_uid))
+
+    qtbot.waitUntil(shown, timeout=timeout)
     return window.model.finished

@@ -57,4 +57,4 @@ def limits_text(limits: Mapping[str, Any] | None) -> str:
         parts.append(f"{p * 1e3:g} mW" if p < 1 else f"{p:g} W")
     if r is not None:
         parts.append(f"reverse {r:g} V")
-    return " · ".join(parts) or "–"
+    return " · ".join(p.replace(" ", "\u00a0") for p in parts) or "–"   # break between items

@@ -20,7 +20,7 @@ import numpy as np
 import pyqtgraph as pg
 from PyQt6.QtCore import Qt
 from PyQt6.QtGui import QColor, QFont, QPen
-from PyQt6.QtWidgets import QTabWidget, QSplitter, QVBoxLayout, QWidget
+from PyQt6.QtWidgets import QLabel, QSplitter, QTabWidget, QVBoxLayout, QWidget
 
 from . import palette
 from .run_model import RunModel, SweepTrace
@@ -181,11 +181,15 @@ class CurvePlot(TimedPlotWidget):
         else:                                   # an empty right axis keeps the plots aligned
             pi.showAxis("right")
             pi.getAxis("right").setStyle(showValues=False)
-        self._placeholder = pg.TextItem(placeholder, color="#808080", anchor=(0.5, 0.5))
-        self._placeholder.setFont(QFont(self.font().family(), 11))
-        self._placeholder_shown = False
-        if placeholder:
-            self._show_placeholder(True)
+        # a plain label over the empty plot (not a scene item: it must not move with the view)
+        self._placeholder = QLabel(placeholder, self)
+        self._placeholder.setObjectName("plot-placeholder")
+        self._placeholder.setStyleSheet("QLabel{color:#707070;font-size:11pt;background:transparent}")
+        self._placeholder.setAlignment(Qt.AlignmentFlag.AlignCenter)
+        self._placeholder.setAttribute(Qt.WidgetAttribute.WA_TransparentForMouseEvents)
+        self._placeholder.setVisible(bool(placeholder))
+        self.legend.hide()
+        self._empty_view()
         self._fit_in_legend = False
         self._power_in_legend = False
         self.items: dict[str, _Items] = {}
@@ -214,7 +218,8 @@ class CurvePlot(TimedPlotWidget):
         if not self._auto_view:
             return
         if self.log_y or self.power_view is None:
-            vb.enableAutoRange()
+            if self.items or self.overlay_items:
+                vb.enableAutoRange()
             return
         xs, ys, ps = [], [], []
         # xData/yData: the data as given (getData() is clipped to the present view)
@@ -233,8 +238,6 @@ class CurvePlot(TimedPlotWidget):
                 xs.append(x)
                 ys.append(y)
         if not xs:
-            vb.enableAutoRange()
-            self.power_view.enableAutoRange()
             return
         with np.errstate(all="ignore"):
             x = np.concatenate(xs)
@@ -260,30 +263,20 @@ class CurvePlot(TimedPlotWidget):
         self.power_view.setGeometry(vb.sceneBoundingRect())
         self.power_view.linkedViewChanged(vb, self.power_view.XAxis)
 
-    def _show_placeholder(self, show: bool) -> None:
-        if show == self._placeholder_shown:
-            return
-        vb = self.getPlotItem().getViewBox()
-        if show:
-            self._placeholder.setParentItem(vb)
-            self._placeholder.setPos(0, 0)
-            vb.sigResized.connect(self._centre_placeholder)
-            self._centre_placeholder()
-        else:
-            try:
-                vb.sigResized.disconnect(self._centre_placeholder)
-            except TypeError:
-                pass
-            self._placeholder.setParentItem(None)
-            if self._placeholder.scene() is not None:
-                self._placeholder.scene().removeItem(self._placeholder)
-        self._placeholder_shown = show
+    def resizeEvent(self, event) -> None:  # noqa: N802 - Qt name
+        super().resizeEvent(event)
+        label = self.__dict__.get("_placeholder")     # pyqtgraph resizes during __init__
+        if label is not None:
+            label.setGeometry(0, 0, self.width(), self.height())
 
-    def _centre_placeholder(self) -> None:
+    def _empty_view(self) -> None:
+        """A tidy default range while the plot has no data."""
         vb = self.getPlotItem().getViewBox()
-        r = vb.boundingRect()
-        # TextItem ignores the view's transform; place it in the view's own coordinates
-        self._placeholder.setPos(vb.mapToView(r.center()))
+        vb.disableAutoRange()
+        if self.log_y:
+            vb.setRange(xRange=(-0.3, 0.8), yRange=(-4, 2), padding=0)   # log10 of mA(/cm2)
+        else:
+            vb.setRange(xRange=(-0.1, 0.8), yRange=(-10, 50), padding=0)
 
     def set_axis_labels(self, current_unit: str, power_unit: str, density: bool) -> None:
         pi = self.getPlotItem()
@@ -320,8 +313,12 @@ class CurvePlot(TimedPlotWidget):
         self._update_placeholder()
 
     def _update_placeholder(self) -> None:
-        if self._placeholder.toPlainText():
-            self._show_placeholder(not self.items and not self.overlay_items)
+        empty = not self.items and not self.overlay_items
+        if self._placeholder.text():
+            self._placeholder.setVisible(empty)
+        self.legend.setVisible(not empty)
+        if empty:
+            self._empty_view()
 
     def add_sweep(self, trace: SweepTrace) -> None:
         colour = palette.sweep_colour(trace.order)
@@ -345,6 +342,7 @@ class CurvePlot(TimedPlotWidget):
                 self._power_in_legend = True
         self.items[trace.uid] = items
         self._update_placeholder()
+        self.fit_view()
 
     def update_sweep(self, trace: SweepTrace) -> None:
         items = self.items.get(trace.uid)

@@ -17,10 +17,16 @@ from typing import Any, Mapping, Sequence
 DASH = "–"
 
 METHOD_NAMES = {
+    "procedure1": "IEC 60891 proc. 1",
+    "procedure2": "IEC 60891 proc. 2",
+    "procedure3": "IEC 60891 proc. 3",
+    "diode_model": "diode model",
+}
+METHOD_LONG_NAMES = {
     "procedure1": "IEC 60891 procedure 1",
     "procedure2": "IEC 60891 procedure 2",
     "procedure3": "IEC 60891 procedure 3",
-    "diode_model": "diode model (De Soto)",
+    "diode_model": "diode-model translation (De Soto relations)",
 }
 
 MODEL_NAMES = {"single": "single diode", "double": "double diode", "auto": "auto"}
@@ -117,7 +123,7 @@ def figures_table(result: Mapping[str, Any], fit_name: str | None = None) -> Tab
     notes = ["measured: from the points; fit: the "
              + (f"{MODEL_NAMES.get(fit.get('model', fit_name), fit_name)} fit" if fit_name
                 else "model fit")
-             + (f"; at STC: {METHOD_NAMES.get(method, method)}" if method else "")]
+             + (f"; at STC: {METHOD_LONG_NAMES.get(method, method)}" if method else "")]
     rows: list[tuple[str, ...]] = []
 
     def row(name: str, key: str, scale: float = 1.0):
@@ -198,31 +204,33 @@ def stc_table(result: Mapping[str, Any]) -> Table | None:
     target = stc.get("target") or {}
     title = (f"At STC ({fmt(target.get('irradiance_w_m2'), digits=4)} W/m², "
              f"{fmt(target.get('temperature_c'), digits=3)} °C)")
-    header = ("method", "Isc (mA)", "Voc (V)", "Pmax (mW)", "FF (%)", "note")
+    header = ("method", "Isc (mA)", "Voc (V)", "Pmax (mW)", "FF (%)")
     rows = []
     notes = []
     for m in stc.get("methods") or ():
-        name = METHOD_NAMES.get(m.get("method"), str(m.get("method")))
+        key = m.get("method")
+        name = METHOD_NAMES.get(key, str(key))
+        long_name = METHOD_LONG_NAMES.get(key, str(key))
         if not m.get("ok"):
-            notes.append(f"{name}: not applied — {m.get('error') or 'failed'}")
+            notes.append(f"{long_name}: not applied — {m.get('error') or 'failed'}")
             continue
         f = _figures_of(m.get("figures"))
-        tags = []
-        if m.get("method") == stc.get("primary"):
-            tags.append("primary")
-        if f.get("isc_extrapolated"):
-            tags.append("Isc extrapolated")
-        if f.get("voc_extrapolated"):
-            tags.append("Voc extrapolated")
+        if key == stc.get("primary"):
+            name += " *"
+            notes.insert(0, f"* primary: {long_name}")
+        for what in ("isc", "voc"):
+            if f.get(f"{what}_extrapolated"):
+                notes.append(f"{long_name}: {what.capitalize()} extrapolated beyond the points")
         rows.append((name, fmt(f.get("isc_a"), 1e3), fmt(f.get("voc_v")), fmt(f.get("pmax_w"), 1e3),
-                     fmt(f.get("ff"), 100.0), ", ".join(tags)))
+                     fmt(f.get("ff"), 100.0)))
     spread = stc.get("spread") or {}
     if not rows:
         return Table(title, (), (), tuple(notes))
     if (spread.get("methods") or 0) > 1:
-        rows.append(("spread (half range)", fmt(spread.get("isc_a_half_range"), 1e3),
+        rows.append(("half range", fmt(spread.get("isc_a_half_range"), 1e3),
                      fmt(spread.get("voc_v_half_range")), fmt(spread.get("pmax_half_range_w"), 1e3),
-                     fmt(spread.get("ff_half_range"), 100.0), "between methods"))
+                     fmt(spread.get("ff_half_range"), 100.0)))
+        notes.append("half range: spread between the methods")
     return Table(title, header, tuple(rows), tuple(notes))
 
 

@@ -77,7 +77,8 @@ class SetupPanel(QWidget):
         layout.addWidget(bench_box)
 
         # -- sample
-        sample_box = QGroupBox("Sample (empty = as in the protocol)")
+        sample_box = QGroupBox("Sample")
+        sample_box.setToolTip("Leave a field empty to keep the protocol's value (shown grey)")
         form = QFormLayout(sample_box)
         form.setFieldGrowthPolicy(QFormLayout.FieldGrowthPolicy.AllNonFixedFieldsGrow)
         self.sample_id = QLineEdit()
@@ -108,6 +109,8 @@ class SetupPanel(QWidget):
         self.picker = QComboBox()
         self.picker.setObjectName("protocol-picker")
         self.picker.setSizePolicy(QSizePolicy.Policy.Expanding, QSizePolicy.Policy.Fixed)
+        self.picker.setSizeAdjustPolicy(QComboBox.SizeAdjustPolicy.AdjustToMinimumContentsLengthWithIcon)
+        self.picker.setMinimumContentsLength(12)
         self.open_button = QPushButton("Open…")
         self.save_button = QPushButton("Save as…")
         row.addWidget(self.picker, 1)
@@ -292,7 +295,7 @@ class SetupPanel(QWidget):
             return
         sid = getattr(sample, "id", None) or getattr(sample, "sample_id", None)
         if sid:
-            self.sample_id.setPlaceholderText(f"{sid} (from the protocol)")
+            self.sample_id.setPlaceholderText(f"{sid} (protocol)")
         area = getattr(sample, "area_cm2", None)
         self.area.setSpecialValueText(f"{area:g} cm² (protocol)" if area else "unknown (protocol)")
         cells = getattr(sample, "cells_in_series", None)
@@ -300,7 +303,7 @@ class SetupPanel(QWidget):
         meta = getattr(v.protocol, "metadata", None) or {}
         who = meta.get("operator") if hasattr(meta, "get") else None
         if who and not self.operator.placeholderText():
-            self.operator.setPlaceholderText(f"{who} (from the protocol)")
+            self.operator.setPlaceholderText(f"{who} (protocol)")
 
     def _go_to_problem(self, item: QListWidgetItem) -> None:
         text = item.text()

@@ -24,7 +24,8 @@ from typing import Any, Callable, Mapping
 
 from PyQt6.QtCore import Qt, QTimer, pyqtSignal
 from PyQt6.QtGui import QCloseEvent
-from PyQt6.QtWidgets import (QLabel, QMainWindow, QSplitter, QTabWidget, QVBoxLayout, QWidget)
+from PyQt6.QtWidgets import (QLabel, QMainWindow, QSizePolicy, QSplitter, QTabWidget,
+                             QVBoxLayout, QWidget)
 
 from tracer import events as ev
 
@@ -70,6 +71,7 @@ class BenchWindow(QMainWindow):
         self._finished_shown: str | None = None
         self._protocol_file = ""
         self._shown_alarm = None
+        self._split_done = False
 
         self.setWindowTitle(f"tracer — bench window — {bench_info.name}")
         self.setObjectName("bench-window")
@@ -113,6 +115,8 @@ class BenchWindow(QMainWindow):
         self.setCentralWidget(central)
         self.status_label = QLabel("Ready")
         self.status_label.setObjectName("status-text")
+        # a long message is cut, never allowed to widen the window
+        self.status_label.setSizePolicy(QSizePolicy.Policy.Ignored, QSizePolicy.Policy.Preferred)
         self.statusBar().addWidget(self.status_label, 1)
         self.points_label = QLabel("")
         self.statusBar().addPermanentWidget(self.points_label)
@@ -297,6 +301,13 @@ class BenchWindow(QMainWindow):
         if not self.grab().save(str(path), "PNG"):
             raise OSError(f"could not write {path}")
         return path
+
+    def showEvent(self, event) -> None:  # noqa: N802 - Qt name
+        super().showEvent(event)
+        if not self._split_done:
+            self._split_done = True
+            total = max(self.splitter.width(), self.width() - 12)
+            self.splitter.setSizes([int(total * 0.22), int(total * 0.47), int(total * 0.31)])
 
     # ------------------------------------------------------------------ closing
     def closeEvent(self, event: QCloseEvent) -> None:  # noqa: N802 - Qt name
