@@ -227,6 +227,20 @@ def test_power_limit_trips(wire):
     assert_ended_safe(w, finished, {"power-limit"})
 
 
+def test_over_voltage_protection_trips_over_the_wire(wire):
+    """OVP is set to limits.voltage_v at the output terminals. Sweeping a four-wire
+    voltage source right up to that limit while current flows puts the terminals above it
+    by the lead drop: the instrument's protection switches the output off and the run
+    names it."""
+    w = wire()
+    limits = pl.Limits(voltage_v=0.6, current_a=0.1, power_w=0.2, reverse_voltage_v=0.5)
+    # dark: the forward-biased cell draws current, so the terminals sit above the sense point
+    finished = finish(w, plan_of(light_iv(light=False, start=0.3, stop=0.6, points=31,
+                                          four_wire=True), limits=limits))
+    assert_ended_safe(w, finished, {"protection-tripped"})
+    assert w.sim.state()["smu"]["ovp_tripped"]
+
+
 def test_graceful_and_emergency_stop_over_the_wire(wire):
     w = wire()
     hit = threading.Event()
