@@ -105,10 +105,13 @@ def _sandia(v, i):
     return elapsed, float(np.sqrt(np.mean((i - model) ** 2))), params
 
 
-def run(quick: bool = False) -> dict:
+def run(quick: bool = False, count: int | None = None) -> dict:
+    """Fit 100 curves of each kind (20 with ``quick``, or ``count``); print and return
+    the figures."""
     from tracer.fit import fit_curve
 
-    count = 20 if quick else 100
+    if count is None:
+        count = 20 if quick else 100
     curves = make_curves(count)
     ours_ms, ours_rmse, base_ms, base_rmse = [], [], [], []
     failures = 0
