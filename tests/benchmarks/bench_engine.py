@@ -134,14 +134,15 @@ def run(quick: bool = False) -> dict[str, float]:
     rounds = 1 if quick else 5
     samples: dict[str, list[float]] = {"bare": [], "driver": [], "point": [], "list": []}
     with simulated_instrument.running_bench(time_scale=0.0, seed=0) as sim:
-        rm = pyvisa.ResourceManager("@py")
-        ScpiChannelSwitch(sim.addresses["switch"], resource_manager=rm, channels=6).select(1)
+        rm = pyvisa.ResourceManager("@py")    # shared process-wide by pyvisa: not closed here
+        selector = ScpiChannelSwitch(sim.addresses["switch"], resource_manager=rm, channels=6)
+        selector.select(1)
         for _ in range(rounds):           # interleaved, so drifting machine load hits all alike
             samples["bare"].append(bare_loop(sim.addresses["smu"], rm, n))
             samples["driver"].append(driver_loop(sim.addresses["smu"], rm, n))
             samples["point"].append(engine_rate(sim, rm, n, "point"))
             samples["list"].append(engine_rate(sim, rm, n, "list"))
-        rm.close()
+        selector.close()
     rate = {k: statistics.median(v) for k, v in samples.items()}
     # ratios within each round (same machine load), then the median over rounds
     def paired(a: str, b: str) -> float:

@@ -63,7 +63,8 @@ class WireBench:
                 inst.close()
             except Exception:
                 pass
-        self.rm.close()
+        # the "@py" resource manager is shared process-wide (pyvisa keeps one per library):
+        # closing it would close every other test's resources too
 
 
 @pytest.fixture
