@@ -143,7 +143,7 @@ def test_points_stream_in_order_over_the_wire(wire, acquisition):
 def test_list_mode_streams_while_the_instrument_runs():
     """With a running clock the list takes real time; points reach the subscriber before
     the instrument has finished the list."""
-    with simulated_instrument.running_bench(time_scale=0.05, seed=1) as sim:
+    with simulated_instrument.running_bench(time_scale=0.1, seed=1) as sim:   # ~0.4 s of list
         w = WireBench(sim)
         sweeping_when_seen = []
 
@@ -153,10 +153,10 @@ def test_list_mode_streams_while_the_instrument_runs():
 
         w.engine.subscribe(watch, critical=True)
         try:
-            finished = finish(w, plan_of(light_iv(acquisition="list", points=60, nplc=1.0)))
+            finished = finish(w, plan_of(light_iv(acquisition="list", points=200, nplc=1.0)))
             assert finished.status == ev.RUN_COMPLETED, finished.reason
             assert sweeping_when_seen[0] is True
-            assert len(of_type(w.events.events, ev.Point)) == 60
+            assert len(of_type(w.events.events, ev.Point)) == 200
             assert not w.output_on()
         finally:
             w.close()
@@ -286,10 +286,11 @@ FAULT_CAUSES = {
 }
 
 
-def _fault_plan(acquisition: str, points: int):
+def _fault_plan(acquisition: str, points: int, nplc: float = 0.1):
     # compliance at the protection limit, so a forced compliance trip is an interlock
     # the stage sits near 26.5 C under the lamp (scenario: 25 C + 1.5 K per kW/m2)
-    return plan_of(light_iv(acquisition=acquisition, points=points, compliance=LIMITS.current_a),
+    return plan_of(light_iv(acquisition=acquisition, points=points, compliance=LIMITS.current_a,
+                            nplc=nplc),
                    checks=pl.Checks(temperature_window_c=(20.0, 29.0), light_stability_rel=0.05,
                                     watchdog_s=0.3))
 
@@ -328,19 +329,20 @@ def test_fault_during_a_point_sweep(wire, sim, name):
 
 @pytest.mark.parametrize("name", sorted(FAULT_CAUSES))
 def test_fault_during_a_list_sweep(name):
-    """The fault fires one SMU message after the list was started, while it runs."""
-    with simulated_instrument.running_bench(time_scale=0.02, seed=3) as sim:
+    """The fault fires with the message that starts the list, while it runs (200 points of
+    20.5 ms simulated, about 0.2 s of real time at this time scale)."""
+    with simulated_instrument.running_bench(time_scale=0.05, seed=3) as sim:
         w = WireBench(sim)
         armed = threading.Event()
 
         def arm_at_list_start(event):
             if isinstance(event, ev.SweepStarted) and event.acquisition == "list" and not armed.is_set():
                 armed.set()
-                sim.inject(name, after=2)
+                sim.inject(name, after=1)
 
         w.engine.subscribe(arm_at_list_start, critical=True)
         try:
-            finished = finish(w, _fault_plan("list", 200))
+            finished = finish(w, _fault_plan("list", 200, nplc=1.0))
             assert armed.is_set()
             assert_ended_safe(w, finished, FAULT_CAUSES[name])
             if name not in ("light-failure", "overtemp"):   # these are read between fetches
