@@ -39,3 +39,11 @@ def test_auto_with_too_few_points_for_two_diodes_keeps_single():
     res = fit_curve(V[::6], I[::6], model="auto")  # 7 points: 5 + 1 < 7 < 7 + 1
     assert res.model == "single"
     assert "too few" in res.selection_reason
+
+
+def test_light_curve_in_load_convention_is_refused():
+    with pytest.raises(FitError, match="generator convention"):
+        fit_curve(V, -I)
+    # current rising with voltage, though partly positive
+    with pytest.raises(FitError, match="rises with the voltage"):
+        fit_curve(V, -I + 6.0)

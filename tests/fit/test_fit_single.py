@@ -155,3 +155,29 @@ def test_curve_order_and_ideal_shunt():
     assert res.parameters["ideality"] == pytest.approx(1.05, rel=1e-6)
     assert res.parameters["series_resistance_ohm"] == pytest.approx(0.003, rel=1e-6)
     assert json.dumps(res.to_dict(), allow_nan=False)
+
+
+def test_sweep_stopped_at_half_voc_still_fits_exactly():
+    # A sweep aborted at half of Voc (oracle: pvlib i_from_v): the diode is barely
+    # visible there, yet the exact parameters are still the global optimum and found.
+    from pvlib import pvsystem
+
+    vt = thermal_voltage(298.15)
+    v = np.linspace(0.0, 0.35, 50)
+    i = np.asarray(pvsystem.i_from_v(v, 9.0, 1e-10, 0.004, 50.0, 1.1 * vt), dtype=float)
+    res = fit_curve(v, i)
+    assert res.rmse_a < 1e-12 * 9.0
+    assert res.parameters["ideality"] == pytest.approx(1.1, rel=1e-6)
+
+
+def test_wrong_cell_count_is_flagged():
+    # A 360-cell string fitted as one cell needs n ~ 400: beyond the search limit, the
+    # result says so instead of passing silently.
+    from pvlib import pvsystem
+
+    vt = thermal_voltage(298.15)
+    v = np.linspace(0.0, 250.0, 300)
+    i = np.asarray(pvsystem.i_from_v(v, 9.0, 1e-10, 1.5, 2000.0, 1.1 * 360 * vt), dtype=float)
+    assert fit_curve(v, i, cells_in_series=360).notes == ()
+    notes = fit_curve(v, i).notes
+    assert any("search limit" in n and "cells_in_series" in n for n in notes)

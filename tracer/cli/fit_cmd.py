@@ -108,5 +108,7 @@ def format_table(result, source: str = "") -> str:
         for key, label, unit in _FIGURE_LABELS:
             lines.append(f"    {label:<5} {_num(figures[key]):>14} {unit}")
     lines.append(f"  {result.selection_reason}")
+    for note in result.notes:
+        lines.append(f"  note: {note}")
     lines.append(f"  fit time {result.elapsed_s * 1e3:.1f} ms")
     return "\n".join(lines)

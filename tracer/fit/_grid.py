@@ -37,6 +37,8 @@ DEGENERATE_FRACTION = 1e-6
 #: The customary double-diode idealities, always tried as a start.
 STANDARD_IDEALITIES = (1.0, 2.0)
 _RIDGE = 1e-13
+#: Cap on exponents (see tracer.fit._layout).
+EXP_CAP = 300.0
 
 
 @dataclass(frozen=True)
@@ -229,7 +231,7 @@ class _Reduced:
         vd = self.v + self.y * rs
         conductance = np.full_like(vd, g)
         for ak, i0k in zip(a, i0):
-            conductance += i0k * np.exp(np.minimum(vd / ak, 700.0)) / ak
+            conductance += i0k * np.exp(np.minimum(vd / ak, EXP_CAP)) / ak
         return conductance
 
     def first_order_weights(self, a, rs, i0, g):
@@ -241,7 +243,7 @@ class _Reduced:
         vd = self.v + self.y * rs
         model = iph - vd * g
         for ak, i0k in zip(a, i0):
-            model = model - i0k * np.expm1(np.minimum(vd / ak, 700.0))
+            model = model - i0k * np.expm1(np.minimum(vd / ak, EXP_CAP))
         w2 = self.first_order_weights(a, rs, i0, g)
         r = self.y - model
         return float(np.sum(self.base_sw * w2 * r * r))

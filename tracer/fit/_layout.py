@@ -17,7 +17,9 @@ import numpy as np
 
 from tracer.model import double_diode_current, single_diode_current
 
-_EXP_CAP = 700.0
+#: Cap on exponents: e**300 ~ 1e130 keeps squares and products finite; any
+#: physical diode current has an exponent (ln of its ratio to I0) far below it.
+_EXP_CAP = 300.0
 
 
 @dataclass(frozen=True)

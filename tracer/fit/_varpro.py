@@ -19,7 +19,9 @@ from scipy.optimize import nnls
 
 from tracer.fit._lm import bounded_lm
 
-_EXP_CAP = 700.0
+#: Cap on exponents: e**300 ~ 1e130 keeps squares and products finite; any
+#: physical diode current has an exponent (ln of its ratio to I0) far below it.
+_EXP_CAP = 300.0
 
 
 class ProjectedProblem:

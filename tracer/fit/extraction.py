@@ -45,8 +45,9 @@ MODELS = ("single", "double", "auto")
 LOSSES = ("linear", "soft_l1")
 #: Bounds of the ideality factor during the polish (wider than the grid).
 IDEALITY_BOUNDS = (0.2, 20.0)
-#: ln I0 may go this far below ln(current scale): I0 ~ 1e-39 * Isc is "no diode".
-LOG_I0_SPAN = 90.0
+#: ln I0 may go this far below ln(current scale): I0 ~ 1e-174 * Isc is "no diode" even
+#: for a trial with a junction voltage of hundreds of a = n*Ns*Vt.
+LOG_I0_SPAN = 400.0
 #: Linearised-model rounds (one exact solve each), their stopping rules, and the
 #: iterations of the cheap inner minimisation per round.
 _SURROGATE_ROUNDS = 10
@@ -120,6 +121,9 @@ def _series_resistance_ceiling(v: np.ndarray, i: np.ndarray) -> float:
 def _prepare(v, i, *, temperature_k, cells_in_series, dark, loss) -> _Problem:
     vt = thermal_voltage(temperature_k)
     ns_vt = cells_in_series * vt
+    current_scale = float(np.max(np.abs(i)))
+    if current_scale <= 0.0:
+        raise FitError("all currents are zero; nothing to fit")
     if dark:
         # generator convention: forward bias (V > 0) drives a negative current
         fit_mask = (v != 0.0) & (i != 0.0) & (np.sign(i) == -np.sign(v))
@@ -131,9 +135,18 @@ def _prepare(v, i, *, temperature_k, cells_in_series, dark, loss) -> _Problem:
             )
     else:
         fit_mask = np.ones(v.size, dtype=bool)
-    current_scale = float(np.max(np.abs(i)))
-    if current_scale <= 0.0:
-        raise FitError("all currents are zero; nothing to fit")
+        if np.max(i) <= 0.0:
+            raise FitError(
+                "light curve without positive current: pass it in the generator "
+                "convention (Isc > 0), or fit it as a dark curve"
+            )
+        order = np.argsort(v, kind="stable")
+        tenth = max(1, v.size // 10)
+        if np.mean(i[order[:tenth]]) < np.mean(i[order[-tenth:]]):
+            raise FitError(
+                "the current rises with the voltage: the curve looks like the load "
+                "convention; pass it in the generator convention (Isc > 0)"
+            )
     return _Problem(
         voltage_v=v, current_a=i, fit_mask=fit_mask, ns_vt_v=ns_vt, dark=dark, loss=loss,
         current_scale_a=current_scale, voltage_scale_v=float(np.max(np.abs(v))),
@@ -257,7 +270,10 @@ def _covariance(jac: np.ndarray, residual: np.ndarray, n_params: int, weights=No
     small = sv <= _SINGULAR_RTOL * sv[0] if sv.size and sv[0] > 0 else np.ones_like(sv, bool)
     inv_sv2 = np.where(small, 0.0, 1.0 / np.where(small, 1.0, sv) ** 2)
     cov_s = (vt.T * inv_sv2) @ vt
-    cov = s2 * cov_s / np.outer(col, col)
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        # a column of ~1e-170 (a diode of no consequence) has an unbounded variance
+        cov = s2 * cov_s / col[:, None] / col[None, :]
+    cov = np.where(np.isnan(cov), np.inf, cov)
     if small.any():
         undetermined = np.any(np.abs(vt[small]) > 1e-6, axis=0)
         cov[undetermined, :] = np.inf
@@ -342,6 +358,8 @@ def _surrogate_polish(problem: _Problem, objective: _Objective, theta0, lb, ub, 
                 break
             step = 0.5 * step
         else:
+            return theta
+        if not np.all(np.isfinite(step)):
             return theta
         moved = float(np.max(np.abs(step / x_scale)))
         theta = theta + step
@@ -433,6 +451,24 @@ def _report(fit: _Fit, problem: _Problem):
         sigmas = (sd_iph, sd_i0[0], sd_i0[1], sd_n[0], sd_n[1], sd_rs, sd_rsh)
         keys = DOUBLE_KEYS
     return dict(zip(keys, map(float, values))), dict(zip(keys, map(float, sigmas)))
+
+
+def _notes(fit: _Fit, problem: _Problem) -> tuple[str, ...]:
+    """Warnings for the reader: parameters pinned at a search limit, undetermined ones."""
+    notes = []
+    layout = fit.layout
+    for k, j in enumerate(layout.a_indices()):
+        n = fit.theta[j] / problem.ns_vt_v
+        name = "ideality" if layout.n_diodes == 1 else f"ideality_{k + 1}"
+        for limit in IDEALITY_BOUNDS:
+            if abs(n / limit - 1.0) < 1e-6:
+                notes.append(f"{name} stopped at the search limit {limit:g}: check "
+                             "cells_in_series and the temperature")
+    sd = np.sqrt(np.clip(np.diag(fit.covariance), 0.0, np.inf))
+    if not np.all(np.isfinite(sd)):
+        notes.append("some parameters are not determined by these data (infinite "
+                     "uncertainty): the curve does not constrain every part of the model")
+    return tuple(notes)
 
 
 def _check_options(model, loss, temperature_k, cells_in_series):
@@ -528,6 +564,7 @@ def fit_curve(voltage_v, current_a, *, model: str = "single", temperature_k: flo
 
     fit = fits[chosen]
     parameters, uncertainty = _report(fit, problem)
+    notes = _notes(fit, problem)
     current_model = model_current(fit.layout, fit.theta, v)
     residuals = i - current_model
     rmse = float(np.sqrt(np.mean(residuals**2)))
@@ -537,7 +574,7 @@ def fit_curve(voltage_v, current_a, *, model: str = "single", temperature_k: flo
         residuals_a=residuals, figures=None, selection_reason=reason, elapsed_s=0.0,
         temperature_k=temperature_k, cells_in_series=cells_in_series, dark=dark, loss=loss,
         rmse_log=rmse_log, information_criteria=criteria, n_points=int(v.size),
-        n_points_fitted=n_fit,
+        n_points_fitted=n_fit, notes=notes,
     )
     figures = None if dark else result.to_model().figures()
     elapsed = time.perf_counter() - started

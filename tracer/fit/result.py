@@ -59,6 +59,9 @@ class FitResult:
         BIC of each model tried (``{"single": ..., "double": ...}``).
     n_points : int
         Points in the curve; ``n_points_fitted`` of them entered the objective.
+    notes : tuple of str
+        Warnings for the reader (a parameter stopped at a search limit, parameters the
+        data do not determine); empty when there is nothing to say.
     """
 
     model: str
@@ -77,6 +80,7 @@ class FitResult:
     information_criteria: dict = field(default_factory=dict)
     n_points: int = 0
     n_points_fitted: int = 0
+    notes: tuple = ()
 
     def to_model(self) -> SingleDiode | DoubleDiode:
         """The fitted equivalent circuit as a :mod:`tracer.model` object."""
@@ -92,7 +96,7 @@ class FitResult:
 
     def to_dict(self) -> dict:
         """JSON-safe summary: model, each parameter, rmse_a, uncertainty, figures,
-        elapsed_s and selection_reason. Infinite or NaN values become None."""
+        elapsed_s, selection_reason and notes. Infinite or NaN values become None."""
         out = {"model": self.model}
         out.update({k: _json_number(v) for k, v in self.parameters.items()})
         out["rmse_a"] = _json_number(self.rmse_a)
@@ -101,6 +105,7 @@ class FitResult:
         out["figures"] = None if figs is None else {k: _json_number(v) for k, v in figs.items()}
         out["elapsed_s"] = _json_number(self.elapsed_s)
         out["selection_reason"] = self.selection_reason
+        out["notes"] = list(self.notes)
         return out
 
 
