@@ -10,8 +10,9 @@ with its error text under ``errors``; details of every benchmark under ``benchma
 
 A benchmark that fails, hangs or is missing is reported (its figures null, the reason
 given); the command still exits 0. Exit status: 0 report made, 1 the JSON file could not be
-written, 2 bad arguments, 130 interrupted (the running benchmark is ended first). Sizes: full (the default; several minutes) and ``--quick``
-(every benchmark's quick size: under two minutes on two cores).
+written, 2 bad arguments, 130 interrupted (the running benchmark is ended first).
+Sizes: full (the default; several minutes) and ``--quick`` (every benchmark's quick size:
+under two minutes on two cores).
 
 The benchmarks other than the analysis latency live in the source checkout's
 ``tests/benchmarks`` (they use test-only reference libraries); ``--bench-dir`` points
@@ -39,7 +40,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         description="Run every benchmark in one run and print figure, ours, baseline (measured "
                     "in the same run), ratio, goal and whether it is met. A failing benchmark "
                     "is reported, not fatal. Exit status: 0 report made, 1 JSON not written, "
-                    "2 bad arguments.")
+                    "2 bad arguments, 130 interrupted.")
     p.add_argument("--quick", action="store_true",
                    help="every benchmark at its quick size: under two minutes on two cores")
     p.add_argument("--json", metavar="FILE", default=None,
