@@ -7,11 +7,15 @@ implicit diode equation evaluated at the *measured* current,
 
 is linear in (Iph, I0_1 [, I0_2], G = 1/Rsh). Those are found by a nonnegative linear
 least-squares solve for many trials of (a [, a_2], Rs) at once, through batched normal
-equations; the nonnegativity is exact (every support set is tried and the best
-feasible one kept). A coarse grid finds the basins; each competitive local minimum is
-then refined by a few zoomed grids around it, with each point's equation residual
-divided by 1 + Rs*dD/dVd (D the diode-plus-shunt current), which turns it into the
-current residual to first order. The refined points start the exact polish.
+equations (the nonnegativity by trying the support sets, see :func:`_batched_nnls`).
+The grid is searched twice, the second time with every point's equation residual
+divided by 1 + Rs*dD/dVd (D the diode-plus-shunt current, dD/dVd from the first pass's
+best trial), which turns it into the current residual to first order. A coarse grid
+finds the basins; each competitive local minimum is
+then refined by a few zoomed grids around it (weights from the current best trial).
+For two diodes, trials where a diode carries no current are set aside (they form a
+flat floor of single-diode fits) and the customary n1 = 1, n2 = 2 start is always
+added. The refined points start the polish in :mod:`tracer.fit.extraction`.
 """
 from __future__ import annotations
 
@@ -275,7 +279,9 @@ def _coarse_grid(red: _Reduced, ns_vt_v, rs_max_ohm):
     sw_r = red.base_sw / (1.0 + rs_grid[:, None] * conductance[None, :]) ** 2
     sol = red.solve_tensor(a_grid, rs_grid, idx_r, diode_idx, sw_r=sw_r)
 
-    values = sol["ssr"].copy()
+    values = np.where(np.isfinite(sol["ssr"]), sol["ssr"], np.inf)
+    if not np.isfinite(values).any():
+        return a, rs, sol, np.array([], dtype=int), 0.0, np.zeros(rs.size), None
     if n_diodes == 2:
         # trials where one diode carries no current are single-diode trials in disguise;
         # they form a flat floor that would hide the two-diode basins
@@ -293,6 +299,7 @@ def _coarse_grid(red: _Reduced, ns_vt_v, rs_max_ohm):
     minima = lookup[is_min]
     minima = minima[minima >= 0]
     minima = minima[np.argsort(sol["ssr"][minima], kind="stable")]
+    standard = None
     if n_diodes == 2:
         # the customary two-diode start, n1 = 1 and n2 = 2 (best Rs on the grid there)
         ia = int(np.argmin(np.abs(np.log(a_grid / (STANDARD_IDEALITIES[0] * ns_vt_v)))))
@@ -301,14 +308,13 @@ def _coarse_grid(red: _Reduced, ns_vt_v, rs_max_ohm):
         column = column[column >= 0]
         if column.size:
             standard = int(column[np.argmin(sol["ssr"][column])])
-            minima = np.append(minima[minima != standard], standard)
 
     log_step = np.log(a_grid[1] / a_grid[0])
     rs_step = np.empty(n_r)
     rs_step[0] = rs_grid[1]
     rs_step[1:-1] = 0.5 * (rs_grid[2:] - rs_grid[:-2])
     rs_step[-1] = rs_grid[-1] - rs_grid[-2]
-    return a, rs, sol, minima, log_step, rs_step[idx_r], standard if n_diodes == 2 else None
+    return a, rs, sol, minima, log_step, rs_step[idx_r], standard
 
 
 def _refine(red: _Reduced, a0, rs0, log_step, rs_step, start):
@@ -367,6 +373,8 @@ def grid_search(voltage_v, current_a, weights, ns_vt_v, *, n_diodes, dark, rs_ma
     red = _Reduced(np.asarray(voltage_v, dtype=float), np.asarray(current_a, dtype=float),
                    np.asarray(weights, dtype=float), n_diodes, dark)
     a, rs, sol, minima, log_step, rs_step, standard = _coarse_grid(red, ns_vt_v, rs_max_ohm)
+    if minima.size == 0:
+        return []
     floor = sol["ssr"][minima[0]]
     chosen = [k for k in minima[:keep]
               if k == minima[0] or sol["ssr"][k] <= competitive_ratio * max(floor, 0.0)]
@@ -378,7 +386,7 @@ def grid_search(voltage_v, current_a, weights, ns_vt_v, *, n_diodes, dark, rs_ma
         if ZOOM_LEVELS:
             a_k, rs_k, s = _refine(red, a[k], rs[k], log_step, rs_step[k], start)
         else:
-            a_k, rs_k, s = a[k], float(rs[k]), {key: val[k] for key, val in sol.items()}
+            a_k, rs_k, s = a[k], float(rs[k]), start
         score = red.score(a_k, rs_k, s["iph"], s["i0"], s["g"])
         if any(np.allclose(a_k, o.n_ns_vt_v, rtol=1e-3)
                and abs(rs_k - o.series_resistance_ohm) <= 1e-3 * max(rs_k, 1e-12)
