@@ -383,7 +383,7 @@ def _fit_model(problem: _Problem, n_diodes: int) -> _Fit:
                                   dark=problem.dark, rs_max_ohm=problem.rs_max_ohm)
     if not solutions:
         raise FitError("the reduced search found no admissible starting point")
-    incumbent = None  # (cost, theta)
+    incumbent = None  # (cost, theta, sum of squares)
     for rank, sol in enumerate(solutions):
         theta = _theta_from_solution(problem, layout, sol, lb, ub)
         x_scale = _scales(problem, layout, theta)
@@ -391,14 +391,15 @@ def _fit_model(problem: _Problem, n_diodes: int) -> _Fit:
             r0 = objective.residual(theta)
             if np.all(np.isfinite(r0)):
                 objective.f_scale = _robust_scale(r0)
-        if incumbent is not None and not sol.score < incumbent[0]:
+        if incumbent is not None and not sol.score < incumbent[2]:
             # a runner-up basin whose estimated minimum is no better than the optimum
             # already found: not worth a polish
             continue
         theta = _surrogate_polish(problem, objective, theta, lb, ub, x_scale)
         cost = objective.cost(theta)
         if math.isfinite(cost) and (incumbent is None or cost < incumbent[0]):
-            incumbent = (cost, theta)
+            r = objective.residual(theta)
+            incumbent = (cost, theta, float(r @ r))
     if incumbent is None:
         raise FitError("no starting point gave a finite model current")
 
@@ -465,8 +466,9 @@ def _notes(fit: _Fit, problem: _Problem) -> tuple[str, ...]:
         name = "ideality" if layout.n_diodes == 1 else f"ideality_{k + 1}"
         for limit in IDEALITY_BOUNDS:
             if abs(n / limit - 1.0) < 1e-6:
-                notes.append(f"{name} stopped at the search limit {limit:g}: check "
-                             "cells_in_series and the temperature")
+                notes.append(f"{name} stopped at the search limit {limit:g}: the data do "
+                             "not support this diode, or cells_in_series or the "
+                             "temperature is wrong")
     sd = np.sqrt(np.clip(np.diag(fit.covariance), 0.0, np.inf))
     if not np.all(np.isfinite(sd)):
         notes.append("some parameters are not determined by these data (infinite "
