@@ -111,3 +111,26 @@ def test_noisy_double_within_uncertainty():
     for key in KEYS:
         assert abs(res.parameters[key] - truth[key]) <= 4 * res.uncertainty[key], key
     assert res.parameters["ideality_1"] <= res.parameters["ideality_2"]
+
+
+@pytest.mark.slow
+def test_double_uncertainties_are_calibrated():
+    # 3 two-diode curves x 25 noise seeds (0.05 % of Isc): the fraction of parameters
+    # within 1 and 2 standard uncertainties of the truth is that of a normal
+    # distribution, 68.3 % and 95.4 %; accept 0.60-0.78 and 0.90-0.99.
+    z = []
+    for k in (1, 5, 9):
+        model = _double_from_cec(cec_modules(12).iloc[k], fraction=0.3)
+        v = np.linspace(0.0, 1.01 * model.voltage(0.0), 300)
+        i_true = model.current(v)
+        truth = model.parameters()
+        for seed in range(25):
+            rng = np.random.default_rng(seed)
+            i = i_true + 5e-4 * model.photocurrent_a * rng.standard_normal(v.size)
+            res = fit_curve(v, i, model="double", temperature_k=model.temperature_k,
+                            cells_in_series=model.cells_in_series)
+            z.append([abs(res.parameters[key] - truth[key]) / res.uncertainty[key]
+                      for key in KEYS])
+    z = np.array(z)
+    assert 0.60 <= np.mean(z <= 1.0) <= 0.78
+    assert 0.90 <= np.mean(z <= 2.0) <= 0.99
