@@ -7,7 +7,9 @@ statements (triggers) per dialect, because trigger syntax is the one thing the t
 databases do not share. The applied version lives in the ``schema_version`` table; opening
 a logbook applies the missing migrations in order, each in one transaction.
 
-What the guards enforce (SQLite):
+What the guards enforce (the same rules on SQLite and PostgreSQL; PostgreSQL's raise
+SQLSTATE 23000, an integrity error, as SQLite's ``RAISE(ABORT)`` does, and also refuse
+``TRUNCATE``, which SQLite does not have):
 
 - raw points can be neither changed nor deleted, and none can be added to a sweep that
   has finished;
@@ -175,6 +177,71 @@ CREATE TRIGGER sweeps_identity_fixed BEFORE UPDATE OF uid, run_uid, sweep_index,
 BEGIN SELECT RAISE(ABORT, 'the recorded identity of a sweep cannot be changed'); END""",
 )
 
+# PostgreSQL: one refusing function, named by each trigger with its message. Row triggers
+# (not statement triggers) for UPDATE/DELETE, so that a statement touching no row is no
+# error, as on SQLite. PostgreSQL triggers cannot hold a subquery in WHEN, so the "points
+# only into a running sweep" rule is a statement trigger over the inserted rows (one check
+# per INSERT or COPY, not per point).
+_PG_REFUSE = """
+CREATE FUNCTION tracer_refuse() RETURNS trigger LANGUAGE plpgsql AS $$
+BEGIN
+    RAISE EXCEPTION USING ERRCODE = 'integrity_constraint_violation', MESSAGE = TG_ARGV[0];
+END $$"""
+
+
+def _pg_refuse(name: str, when: str, table: str, message: str, *, condition: str = "",
+               level: str = "ROW") -> str:
+    cond = f" WHEN ({condition})" if condition else ""
+    return (f"CREATE TRIGGER {name} {when} ON {table} FOR EACH {level}{cond} "
+            f"EXECUTE FUNCTION tracer_refuse('{message}')")
+
+
+_V1_POSTGRESQL_GUARDS = (
+    _PG_REFUSE,
+    _pg_refuse("points_no_update", "BEFORE UPDATE", "points", "raw points are immutable"),
+    _pg_refuse("points_no_delete", "BEFORE DELETE", "points", "raw points are immutable"),
+    _pg_refuse("points_no_truncate", "BEFORE TRUNCATE", "points", "raw points are immutable",
+               level="STATEMENT"),
+    """
+CREATE FUNCTION tracer_points_into_running_sweep() RETURNS trigger LANGUAGE plpgsql AS $$
+BEGIN
+    IF EXISTS (SELECT 1 FROM new_points n LEFT JOIN sweeps s ON s.uid = n.sweep_uid
+               WHERE s.status IS DISTINCT FROM 'running') THEN
+        RAISE EXCEPTION USING ERRCODE = 'integrity_constraint_violation',
+            MESSAGE = 'points can only be added to a running sweep';
+    END IF;
+    RETURN NULL;
+END $$""",
+    """
+CREATE TRIGGER points_only_into_running_sweep AFTER INSERT ON points
+REFERENCING NEW TABLE AS new_points FOR EACH STATEMENT
+EXECUTE FUNCTION tracer_points_into_running_sweep()""",
+    _pg_refuse("runs_no_delete", "BEFORE DELETE", "runs", "runs are never deleted"),
+    _pg_refuse("runs_no_truncate", "BEFORE TRUNCATE", "runs", "runs are never deleted",
+               level="STATEMENT"),
+    _pg_refuse("runs_finished_are_final", "BEFORE UPDATE", "runs", "a finished run cannot be changed",
+               condition="OLD.status <> 'running'"),
+    _pg_refuse("runs_identity_fixed",
+               "BEFORE UPDATE OF uid, protocol_json, protocol_sha256, sample_id, sample_json, "
+               "operator, bench_json, started_at, software_version", "runs",
+               "the recorded identity of a run cannot be changed"),
+    _pg_refuse("run_instruments_no_update", "BEFORE UPDATE", "run_instruments",
+               "instrument identities are immutable"),
+    _pg_refuse("run_instruments_no_delete", "BEFORE DELETE", "run_instruments",
+               "instrument identities are immutable"),
+    _pg_refuse("run_instruments_no_truncate", "BEFORE TRUNCATE", "run_instruments",
+               "instrument identities are immutable", level="STATEMENT"),
+    _pg_refuse("sweeps_no_delete", "BEFORE DELETE", "sweeps", "sweeps are never deleted"),
+    _pg_refuse("sweeps_no_truncate", "BEFORE TRUNCATE", "sweeps", "sweeps are never deleted",
+               level="STATEMENT"),
+    _pg_refuse("sweeps_finished_are_final", "BEFORE UPDATE", "sweeps",
+               "a finished sweep cannot be changed", condition="OLD.status <> 'running'"),
+    _pg_refuse("sweeps_identity_fixed",
+               "BEFORE UPDATE OF uid, run_uid, sweep_index, step_index, kind, light, direction, "
+               "pixel, source_mode, started_at, conditions_json", "sweeps",
+               "the recorded identity of a sweep cannot be changed"),
+)
+
 # ---------------------------------------------------------------------------------------
 # Version 2: derived records (analyses of a sweep) and the interlock log.
 # ---------------------------------------------------------------------------------------
@@ -219,11 +286,24 @@ CREATE TRIGGER interlock_trips_no_delete BEFORE DELETE ON interlock_trips
 BEGIN SELECT RAISE(ABORT, 'interlock records are append-only'); END""",
 )
 
+_V2_POSTGRESQL_GUARDS = (
+    _pg_refuse("analyses_no_update", "BEFORE UPDATE", "analyses", "analyses are append-only"),
+    _pg_refuse("analyses_no_delete", "BEFORE DELETE", "analyses", "analyses are append-only"),
+    _pg_refuse("analyses_no_truncate", "BEFORE TRUNCATE", "analyses", "analyses are append-only",
+               level="STATEMENT"),
+    _pg_refuse("interlock_trips_no_update", "BEFORE UPDATE", "interlock_trips",
+               "interlock records are append-only"),
+    _pg_refuse("interlock_trips_no_delete", "BEFORE DELETE", "interlock_trips",
+               "interlock records are append-only"),
+    _pg_refuse("interlock_trips_no_truncate", "BEFORE TRUNCATE", "interlock_trips",
+               "interlock records are append-only", level="STATEMENT"),
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration(1, "raw record: runs, instruments, sweeps, immutable points",
-              _V1_TABLES, {"sqlite": _V1_SQLITE_GUARDS}),
+              _V1_TABLES, {"sqlite": _V1_SQLITE_GUARDS, "postgresql": _V1_POSTGRESQL_GUARDS}),
     Migration(2, "derived records: analyses of a sweep; interlock log",
-              _V2_TABLES, {"sqlite": _V2_SQLITE_GUARDS}),
+              _V2_TABLES, {"sqlite": _V2_SQLITE_GUARDS, "postgresql": _V2_POSTGRESQL_GUARDS}),
 )
 
 LATEST_VERSION = MIGRATIONS[-1].version
@@ -231,6 +311,19 @@ LATEST_VERSION = MIGRATIONS[-1].version
 
 def schema_version_table() -> str:
     return _SCHEMA_VERSION_TABLE
+
+
+# Dialect bits of the migration itself: how to tell whether the version table exists, and
+# (PostgreSQL) the lock that serialises two programs migrating the same store at once
+# (SQLite's BEGIN IMMEDIATE already does).
+VERSION_TABLE_EXISTS = {
+    "sqlite": "SELECT COUNT(*) FROM sqlite_master WHERE type = 'table' AND name = 'schema_version'",
+    "postgresql": "SELECT COUNT(*) FROM (SELECT to_regclass('schema_version') AS t) x WHERE t IS NOT NULL",
+}
+MIGRATION_LOCK = {
+    "postgresql": "SELECT pg_advisory_xact_lock(hashtext('tracer-logbook-schema:' || "
+                  "COALESCE(current_schema(), '')))",
+}
 
 
 def pending(current_version: int) -> list[Migration]:

@@ -1,4 +1,6 @@
-"""The logbook: one SQLite file (WAL) holding every run, sweep, raw point and analysis.
+"""The logbook: one SQLite file (WAL) holding every run, sweep, raw point and analysis
+(or the same tables in a PostgreSQL database shared by a lab's benches: give a
+``postgresql://`` URL instead of a path; see :mod:`tracer.logbook.backend`).
 
 Opening a :class:`Logbook` creates the file if needed, applies the missing schema
 migrations, and marks as ``interrupted`` any run whose writing process has died (a run
@@ -33,7 +35,7 @@ from pathlib import Path
 from typing import Any, Iterator, Mapping, Sequence
 
 from tracer import events as ev
-from tracer.logbook import schema
+from tracer.logbook import backend, schema
 from tracer.logbook.paths import default_logbook_path
 
 DEFAULT_BUSY_TIMEOUT_S = 30.0
@@ -314,14 +316,13 @@ class _Transaction:
         else:
             try:
                 self.conn.execute("ROLLBACK")
-            except sqlite3.Error:
+            except Exception:  # noqa: BLE001 - keep the original error (any backend's)
                 pass
 
 
 def _current_version(conn: sqlite3.Connection) -> int:
-    row = conn.execute("SELECT name FROM sqlite_master WHERE type = 'table' "
-                       "AND name = 'schema_version'").fetchone()
-    if row is None:
+    (exists,) = conn.execute(schema.VERSION_TABLE_EXISTS[backend.dialect(conn)]).fetchone()
+    if not exists:
         return 0
     (version,) = conn.execute("SELECT COALESCE(MAX(version), 0) FROM schema_version").fetchone()
     return int(version)
@@ -331,6 +332,7 @@ def migrate(conn: sqlite3.Connection, *, target: int | None = None) -> list[int]
     """Apply the missing migrations (up to ``target``, default the latest) in order,
     each in its own transaction; returns the versions applied."""
     target = schema.LATEST_VERSION if target is None else target
+    dialect = backend.dialect(conn)
     applied: list[int] = []
     version = _current_version(conn)
     if version > schema.LATEST_VERSION:
@@ -341,11 +343,13 @@ def migrate(conn: sqlite3.Connection, *, target: int | None = None) -> list[int]
         if migration.version > target:
             break
         with _Transaction(conn):
+            if dialect in schema.MIGRATION_LOCK:
+                conn.execute(schema.MIGRATION_LOCK[dialect])
             # Re-read under the write lock: another process may have migrated meanwhile.
             conn.execute(schema.schema_version_table())
             if _current_version(conn) >= migration.version:
                 continue
-            for statement in migration.tables + migration.guards.get("sqlite", ()):
+            for statement in migration.tables + migration.guards.get(dialect, ()):
                 conn.execute(statement)
             conn.execute("INSERT INTO schema_version (version, purpose, applied_at) "
                          "VALUES (?, ?, ?)", (migration.version, migration.purpose, time.time()))
@@ -371,10 +375,21 @@ class Logbook:
     ``Logbook(path)`` opens (creating if needed), migrates and recovers interrupted
     runs. Use as a context manager or call :meth:`close`. Safe to share between threads
     (calls are serialised); better: one ``Logbook`` per thread.
+
+    ``path`` may also be a ``postgresql://`` URL (or a :class:`~tracer.logbook.backend.RedactedUrl`):
+    the same tables, guards, migrations and recovery in a PostgreSQL database. ``path``
+    is then the URL with its credentials redacted (it still opens the store when handed
+    back to ``Logbook``); ``busy_timeout_s`` is the connection timeout and
+    ``synchronous`` does not apply (the server decides durability).
     """
 
     def __init__(self, path: Path | str | None = None, *, synchronous: str = "NORMAL",
                  busy_timeout_s: float = DEFAULT_BUSY_TIMEOUT_S, recover: bool = True):
+        self.dialect = backend.dialect_of_target(path)
+        self._key: str | None = None
+        if self.dialect == backend.POSTGRESQL:
+            self._open_postgresql(path, busy_timeout_s, recover)
+            return
         self.path = Path(path) if path is not None else default_logbook_path()
         self.path = self.path.expanduser()
         try:
@@ -397,9 +412,33 @@ class Logbook:
             self._conn.close()
             raise
 
+    def _open_postgresql(self, url: Any, connect_timeout_s: float, recover: bool) -> None:
+        from tracer.logbook import postgres
+
+        self.path = backend.RedactedUrl(url)          # shown everywhere: no credentials
+        self._key = str(self.path)
+        self.synchronous = "NORMAL"
+        self._lock = threading.RLock()
+        try:
+            self._conn = postgres.connect(self.path, connect_timeout_s=connect_timeout_s)
+        except postgres.StoreUnreachable as exc:
+            raise LogbookError(str(exc)) from None
+        try:
+            migrate(self._conn)
+            self.recovery = self.recover_interrupted() if recover else RecoveryReport()
+        except backend.database_errors() as exc:
+            self._conn.close()
+            raise LogbookError(f"cannot use the logbook {self.path}: "
+                               f"{postgres.describe_error(exc, self.path)}") from None
+        except BaseException:
+            self._conn.close()
+            raise
+
     # -- lifetime
     @property
     def key(self) -> str:
+        if self._key is not None:
+            return self._key
         return os.path.realpath(self.path)
 
     def close(self) -> None:
@@ -459,19 +498,24 @@ class Logbook:
                     (status,) = conn.execute("SELECT status FROM runs WHERE uid = ?", (uid,)).fetchone()
                     if status != "running":
                         continue
-                    last = conn.execute("SELECT MAX(time) FROM points WHERE run_uid = ?",
+                    last = conn.execute("SELECT MAX(time) FROM points WHERE sweep_uid IN "
+                                        "(SELECT uid FROM sweeps WHERE run_uid = ?)",
                                         (uid,)).fetchone()[0]
                     conn.execute(
                         "UPDATE sweeps SET status = 'interrupted', reason = ?, ended_at = ? "
                         "WHERE run_uid = ? AND status = 'running'",
                         ("the program stopped before the sweep finished", last, uid))
-                    conn.execute(
-                        "UPDATE runs SET status = ?, reason = ?, ended_at = ? WHERE uid = ?",
+                    # "AND status = 'running'": another program recovering the same
+                    # shared store at the same moment finds nothing left to change
+                    changed = conn.execute(
+                        "UPDATE runs SET status = ?, reason = ?, ended_at = ? "
+                        "WHERE uid = ? AND status = 'running'",
                         (ev.RUN_INTERRUPTED,
                          f"found unfinished when the logbook was opened at "
                          f"{time.strftime('%Y-%m-%d %H:%M:%S', time.localtime(now))}; the "
-                         f"writing process had stopped", last, uid))
-                    done.append(uid)
+                         f"writing process had stopped", last, uid)).rowcount
+                    if changed:
+                        done.append(uid)
             return RecoveryReport(tuple(done))
 
     # -- runs
@@ -497,8 +541,10 @@ class Logbook:
         return rows[0][0]
 
     def list_runs(self, *, sample_id: str | None = None, status: str | None = None,
-                  limit: int | None = None) -> list[RunSummary]:
-        """Runs, newest first, with their sweep and point counts."""
+                  limit: int | None = None, bench_name: str | None = None,
+                  since: float | None = None, until: float | None = None) -> list[RunSummary]:
+        """Runs, newest first, with their sweep and point counts; optionally only one
+        sample's, one bench's, or those started in ``[since, until)`` (POSIX seconds)."""
         where, params = [], []
         if sample_id is not None:
             where.append("r.sample_id = ?")
@@ -506,10 +552,22 @@ class Logbook:
         if status is not None:
             where.append("r.status = ?")
             params.append(status)
+        if bench_name is not None:
+            where.append("r.bench_name = ?")
+            params.append(bench_name)
+        if since is not None:
+            where.append("r.started_at >= ?")
+            params.append(float(since))
+        if until is not None:
+            where.append("r.started_at < ?")
+            params.append(float(until))
+        # points are counted through their sweeps: the points' primary key (sweep_uid, seq)
+        # serves that count on both databases, with no index on points.run_uid
         sql = ("SELECT r.uid, r.protocol_name, r.sample_id, r.operator, r.bench_name, "
                "r.started_at, r.ended_at, r.status, r.reason, "
                "(SELECT COUNT(*) FROM sweeps s WHERE s.run_uid = r.uid), "
-               "(SELECT COUNT(*) FROM points p WHERE p.run_uid = r.uid) "
+               "(SELECT COUNT(*) FROM points p JOIN sweeps s ON p.sweep_uid = s.uid "
+               "WHERE s.run_uid = r.uid) "
                "FROM runs r")
         if where:
             sql += " WHERE " + " AND ".join(where)
@@ -571,8 +629,8 @@ class Logbook:
     def run_points(self, run_ref: str) -> list[ev.Point]:
         """Every raw point of a run, in ``run_seq`` order."""
         uid = self.resolve_run(run_ref)
-        rows = self._query(f"SELECT {_POINT_COLUMNS} FROM points WHERE run_uid = ? ORDER BY run_seq",
-                           (uid,))
+        rows = self._query(f"SELECT {_POINT_COLUMNS} FROM points WHERE sweep_uid IN "
+                           "(SELECT uid FROM sweeps WHERE run_uid = ?) ORDER BY run_seq", (uid,))
         return [ev.Point(run_uid=r[2], sweep_uid=r[0], seq=r[1], run_seq=r[3], time=r[4],
                          setpoint=_nan_if_null(r[5]), voltage_v=_nan_if_null(r[6]),
                          current_a=_nan_if_null(r[7]), in_compliance=bool(r[8]),
@@ -580,7 +638,8 @@ class Logbook:
 
     def point_count(self, run_ref: str) -> int:
         uid = self.resolve_run(run_ref)
-        return self._query("SELECT COUNT(*) FROM points WHERE run_uid = ?", (uid,))[0][0]
+        return self._query("SELECT COUNT(*) FROM points WHERE sweep_uid IN "
+                           "(SELECT uid FROM sweeps WHERE run_uid = ?)", (uid,))[0][0]
 
     # -- derived records
     def analyses(self, *, run_ref: str | None = None, sweep_uid: str | None = None) -> list[StoredAnalysis]:
@@ -667,5 +726,6 @@ class Logbook:
 
 
 def open_logbook(path: Path | str | None = None, **kwargs: Any) -> Logbook:
-    """``Logbook(path)``; ``None`` means :func:`default_logbook_path`."""
+    """``Logbook(path)``; ``None`` means :func:`default_logbook_path`; a ``postgresql://``
+    URL opens a shared store. The reader API is the same for both."""
     return Logbook(path, **kwargs)
