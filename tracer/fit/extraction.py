@@ -44,7 +44,7 @@ from tracer.model import thermal_voltage
 MODELS = ("single", "double", "auto")
 LOSSES = ("linear", "soft_l1")
 #: Bounds of the ideality factor during the polish (wider than the grid).
-IDEALITY_BOUNDS = (0.2, 20.0)
+IDEALITY_BOUNDS = (0.1, 30.0)
 #: ln I0 may go this far below ln(current scale): I0 ~ 1e-174 * Isc is "no diode" even
 #: for a trial with a junction voltage of hundreds of a = n*Ns*Vt.
 LOG_I0_SPAN = 400.0
