@@ -20,12 +20,16 @@ import numpy as np
 import pyqtgraph as pg
 from PyQt6.QtCore import Qt
 from PyQt6.QtGui import QColor, QFont, QPen
-from PyQt6.QtWidgets import QLabel, QSplitter, QTabWidget, QVBoxLayout, QWidget
+from PyQt6.QtWidgets import (QGraphicsItem, QLabel, QSplitter, QTabWidget, QVBoxLayout,
+                             QWidget)
 
 from . import palette
 from .run_model import RunModel, SweepTrace
 
 MARKER_LIMIT = 400          # points per sweep up to which markers are drawn
+MARKER_BUDGET = 4000        # markers per plot: beyond, the oldest sweeps keep only their line
+LEGEND_SWEEPS = 8           # sweeps named in a plot's legend (the newest); older ones thin
+POWER_SWEEPS = 4            # sweeps whose power curve is drawn (the newest)
 LABEL_STYLE = {"color": "#202020", "font-size": "10pt"}
 
 
@@ -35,22 +39,27 @@ class FrameStats:
     def __init__(self, keep: int = 100_000):
         self.keep = keep
         self.frames_ms: list[float] = []
+        self.parts_ms: list[tuple[float, float]] = []    # (redraw work, paint) per frame
         self.latencies_ms: list[float] = []
+        self.cpu_frames_ms: list[float] = []   # the same frames in GUI-thread CPU time
         self._open_work_ms: float | None = None
         self._open_paint_ms = 0.0
+        self._open_cpu_ms = 0.0
         self._pending_point_time: float | None = None
 
-    def frame(self, work_ms: float, oldest_point_time: float | None) -> None:
+    def frame(self, work_ms: float, oldest_point_time: float | None, cpu_ms: float = 0.0) -> None:
         self._close()
         self._open_work_ms = work_ms
         self._open_paint_ms = 0.0
+        self._open_cpu_ms = cpu_ms
         if oldest_point_time is not None and (self._pending_point_time is None
                                               or oldest_point_time < self._pending_point_time):
             self._pending_point_time = oldest_point_time
 
-    def paint(self, ms: float) -> None:
+    def paint(self, ms: float, cpu_ms: float = 0.0) -> None:
         if self._open_work_ms is not None:
             self._open_paint_ms += ms
+            self._open_cpu_ms += cpu_ms
         if self._pending_point_time is not None:
             self._append(self.latencies_ms, (time.time() - self._pending_point_time) * 1e3)
             self._pending_point_time = None
@@ -58,6 +67,8 @@ class FrameStats:
     def _close(self) -> None:
         if self._open_work_ms is not None:
             self._append(self.frames_ms, self._open_work_ms + self._open_paint_ms)
+            self._append(self.parts_ms, (self._open_work_ms, self._open_paint_ms))
+            self._append(self.cpu_frames_ms, self._open_cpu_ms)
             self._open_work_ms = None
 
     def _append(self, target: list[float], value: float) -> None:
@@ -72,12 +83,21 @@ class FrameStats:
             f = np.asarray(self.frames_ms)
             out.update(median_frame_ms=float(np.median(f)), worst_frame_ms=float(f.max()),
                        p99_frame_ms=float(np.percentile(f, 99)))
+            c = np.asarray(self.cpu_frames_ms)
+            out.update(median_frame_cpu_ms=float(np.median(c)), worst_frame_cpu_ms=float(c.max()))
         if self.latencies_ms:
             lat = np.asarray(self.latencies_ms)
             out.update(median_latency_ms=float(np.median(lat)), worst_latency_ms=float(lat.max()))
         return out
 
+    def worst(self, n: int = 5) -> list[tuple[float, float]]:
+        """The ``n`` slowest frames as (work, paint) in ms."""
+        self._close()
+        return sorted(self.parts_ms, key=sum, reverse=True)[:n]
+
     def reset(self) -> None:
+        self.cpu_frames_ms.clear()
+        self.parts_ms.clear()
         self.frames_ms.clear()
         self.latencies_ms.clear()
         self._open_work_ms = None
@@ -92,9 +112,9 @@ class TimedPlotWidget(pg.PlotWidget):
         self._stats = stats
 
     def paintEvent(self, event) -> None:  # noqa: N802 - Qt name
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.thread_time()
         super().paintEvent(event)
-        self._stats.paint((time.perf_counter() - t0) * 1e3)
+        self._stats.paint((time.perf_counter() - t0) * 1e3, (time.thread_time() - c0) * 1e3)
 
 
 def _pen(colour: str, style: str = "SolidLine", width: float = 2.0, alpha: int = 255) -> QPen:
@@ -126,6 +146,9 @@ class _Items:
     fit: pg.PlotDataItem | None = None
     mpp: pg.ScatterPlotItem | None = None
     markers: bool = True
+    in_legend: bool = True
+    colour: str = "#000000"
+    style: str = "SolidLine"
 
 
 class CurvePlot(TimedPlotWidget):
@@ -138,14 +161,19 @@ class CurvePlot(TimedPlotWidget):
         pi = self.getPlotItem()
         pi.showGrid(x=True, y=True, alpha=0.25)
         pi.setMenuEnabled(False)
+        # Long sweeps are drawn downsampled to the plot's width (min/max per pixel column).
+        # No clip-to-view: pyqtgraph's clipping assumes increasing x, and reverse sweeps
+        # run the other way (the range policy below shows all the data anyway).
         pi.setDownsampling(auto=True, mode="peak")
-        pi.setClipToView(True)
         for name in ("left", "bottom", "right"):
             ax = pi.getAxis(name)
             ax.setPen(pg.mkPen("#404040"))
             ax.setTextPen(pg.mkPen("#202020"))
             ax.setTickFont(QFont(self.font().family(), 9))
             ax.enableAutoSIPrefix(False)        # units are in the labels; no "(x0.001)"
+            # An axis (with its grid lines) is costly to paint; cache it as a pixmap, redrawn
+            # only when its range changes (the range policy below changes it rarely).
+            ax.setCacheMode(QGraphicsItem.CacheMode.DeviceCoordinateCache)
         pi.getAxis("left").setWidth(62)         # the plots' voltage axes line up
         pi.getAxis("right").setWidth(62)
         pi.setLabel("bottom", "voltage (V)", **LABEL_STYLE)
@@ -168,9 +196,15 @@ class CurvePlot(TimedPlotWidget):
         self._auto_view = True              # the range policy below, until the user zooms
         pi.getViewBox().sigRangeChangedManually.connect(self._user_moved_view)
         self.scene().sigMouseClicked.connect(self._clicked)
+        self.running_sweep = False          # set by PlotArea while points arrive
+        self.budget_pending = False         # a sweep was added: budgets on a later frame
         self.power_view: pg.ViewBox | None = None
         if with_power:
             self.power_view = pg.ViewBox()
+            # no automatic range here: an auto-ranging linked view would drag the shared
+            # voltage axis along with every new point (the range policy sets it instead)
+            self.power_view.disableAutoRange()
+            self.power_view.setYRange(-5, 25, padding=0)
             pi.showAxis("right")
             pi.scene().addItem(self.power_view)
             right = pi.getAxis("right")
@@ -206,6 +240,7 @@ class CurvePlot(TimedPlotWidget):
     def reset_view(self) -> None:
         """Back to the automatic range (also on a double click)."""
         self._auto_view = True
+        self._view = None
         self.fit_view()
 
     def fit_view(self) -> None:
@@ -250,11 +285,51 @@ class CurvePlot(TimedPlotWidget):
         top = 1.12 * ymax if ymax > 0 else 1.0
         bottom = min(0.0, max(ymin, -0.35 * top)) - 0.05 * top
         pad = 0.03 * (x1 - x0 or 1.0)
-        vb.disableAutoRange()
-        vb.setRange(xRange=(x0 - pad, x1 + pad), yRange=(bottom, top), padding=0)
         ptop = 1.12 * pmax if np.isfinite(pmax) and pmax > 0 else 1.0
+        wanted = (x0 - pad, x1 + pad, bottom, top, ptop)
+        old = getattr(self, "_view", None)
+        if old is not None and self.running_sweep:
+            # A sweep in progress keeps extending its range: grow only, doubling the span on
+            # the side it grows, so the axes are redrawn a few times per sweep, not per frame.
+            lo, hi, ylo, yhi, pt = old
+            span = x1 - x0 + 2 * pad
+            changed = False
+            if x0 - pad < lo:
+                lo, changed = x0 - pad - span, True
+            if x1 + pad > hi:
+                hi, changed = x1 + pad + span, True
+            if bottom < ylo:
+                ylo, changed = min(bottom, max(bottom - (top - bottom), -0.4 * top)), True
+            if top > yhi or top < 0.8 * yhi:
+                yhi, changed = top, True
+            if ptop > pt:
+                pt, changed = max(ptop, 1.6 * pt), True
+            if not changed:
+                return
+            wanted = (lo, hi, ylo, yhi, pt)
+        elif self._view_close_enough(wanted):
+            return                  # a new range repaints the axes: only when it matters
+        bottom, top = wanted[2], wanted[3]
+        self._view = wanted
+        vb.disableAutoRange()
+        vb.setRange(xRange=(wanted[0], wanted[1]), yRange=(bottom, top), padding=0)
         self.power_view.disableAutoRange()
-        self.power_view.setYRange(bottom / top * ptop, ptop, padding=0)
+        self.power_view.setYRange(bottom / top * wanted[4], wanted[4], padding=0)
+
+    def _view_close_enough(self, wanted) -> bool:
+        """The present range still shows everything wanted and is not more than ~8 % too
+        large on any side."""
+        old = getattr(self, "_view", None)
+        if old is None:
+            return False
+        xspan = max(old[1] - old[0], 1e-12)
+        yspan = max(old[3] - old[2], 1e-12)
+        contains = (wanted[0] >= old[0] and wanted[1] <= old[1] and wanted[2] >= old[2]
+                    and wanted[3] <= old[3] and wanted[4] <= old[4])
+        tight = (wanted[0] - old[0] < 0.08 * xspan and old[1] - wanted[1] < 0.08 * xspan
+                 and wanted[2] - old[2] < 0.08 * yspan and old[3] - wanted[3] < 0.08 * yspan
+                 and old[4] - wanted[4] < 0.08 * old[4])
+        return contains and tight
 
     def _sync_power_view(self) -> None:
         if self.power_view is None:
@@ -295,7 +370,8 @@ class CurvePlot(TimedPlotWidget):
         pi = self.getPlotItem()
         for items in self.items.values():
             pi.removeItem(items.current)
-            self.legend.removeItem(items.current)
+            if items.in_legend:
+                self.legend.removeItem(items.current)
             if items.power is not None and self.power_view is not None:
                 self.power_view.removeItem(items.power)
             if items.fit is not None:
@@ -304,6 +380,7 @@ class CurvePlot(TimedPlotWidget):
                 pi.removeItem(items.mpp)
         self.items.clear()
         self._auto_view = True
+        self._view = None
         if self._fit_in_legend:
             self.legend.removeItem("model fit")
             self._fit_in_legend = False
@@ -330,19 +407,53 @@ class CurvePlot(TimedPlotWidget):
         current.setZValue(10)
         self.getPlotItem().addItem(current)
         self.legend.addItem(current, trace.label())
-        items = _Items(current=current, markers=markers)
-        if self.power_view is not None:
-            power = pg.PlotDataItem(pen=_pen(colour, "DotLine", 1.5, palette.POWER_ALPHA),
-                                    connect="finite")
-            self.power_view.addItem(power)
-            items.power = power
-            if not self._power_in_legend:
-                sample = pg.PlotDataItem(pen=_pen("#606060", "DotLine", 1.5))
-                self.legend.addItem(sample, "power (right axis)")
-                self._power_in_legend = True
+        items = _Items(current=current, markers=markers, colour=colour, style=style)
+        current.opts["_planned"] = int(trace.started.points_planned or 0)
         self.items[trace.uid] = items
+        # The rest (power curve, marker and legend budgets) waits for the next redraws, so
+        # that no single frame pays for everything a new sweep needs.
+        self.budget_pending = True
         self._update_placeholder()
         self.fit_view()
+
+    def _add_power(self, items: _Items) -> None:
+        power = pg.PlotDataItem(pen=_pen(items.colour, "DotLine", 1.5, palette.POWER_ALPHA),
+                                connect="finite")
+        power.setDownsampling(auto=True, method="peak")
+        self.power_view.addItem(power)
+        items.power = power
+        if not self._power_in_legend:
+            sample = pg.PlotDataItem(pen=_pen("#606060", "DotLine", 1.5))
+            self.legend.addItem(sample, "power (right axis)")
+            self._power_in_legend = True
+
+    def keep_within_budgets(self) -> None:
+        """Many sweeps on one plot: the oldest lose their markers first (their line keeps
+        the direction's style), only the newest are named in the legend and show power."""
+        self.budget_pending = False
+        ordered = list(self.items.values())
+        if not ordered:
+            return
+        markers = sum(len(i.current.xData) if i.current.xData is not None and i.markers else 0
+                      for i in ordered[:-1])
+        newest = ordered[-1]
+        markers += newest.current.opts.get("_planned", 0) if newest.markers else 0
+        for items in ordered[:-1]:
+            if markers <= MARKER_BUDGET:
+                break
+            if items.markers:
+                markers -= len(items.current.xData) if items.current.xData is not None else 0
+                items.current.setSymbol(None)
+                items.markers = False
+        for items in ordered[:-LEGEND_SWEEPS]:
+            if items.in_legend:
+                self.legend.removeItem(items.current)
+                items.in_legend = False
+                # thin: a 1-pixel line is several times cheaper to paint than a wider one
+                items.current.setPen(_pen(items.colour, items.style, 1.0))
+        for items in ordered[:-POWER_SWEEPS]:
+            if items.power is not None and items.power.isVisible():
+                items.power.setVisible(False)
 
     def update_sweep(self, trace: SweepTrace) -> None:
         items = self.items.get(trace.uid)
@@ -354,6 +465,9 @@ class CurvePlot(TimedPlotWidget):
             items.current.setSymbol(None)
             items.markers = False
         items.current.setData(x, y)
+        if items.power is None and self.power_view is not None and len(x) > 1:
+            self._add_power(items)
+            return                       # its data next frame: one new item per frame
         if items.power is not None:
             items.power.setData(x, trace.column("p"))
 
@@ -495,8 +609,16 @@ class PlotArea(QWidget):
                 self.tabs.setCurrentIndex(0)
         for trace in changes.added + changes.grown:
             self.plot_for(trace).update_sweep(trace)
+        if not changes.added:
+            for p in self.plots():
+                if p.budget_pending:
+                    p.keep_within_budgets()
+                    break                   # one plot per frame
         for trace in changes.analysed:
             if trace.is_iv:
                 self.plot_for(trace).show_fit(trace, model.current_scale)
         if changes.new_run or changes.added or changes.grown or changes.analysed:
+            current = model.current
+            self.light_plot.running_sweep = bool(current is not None and current.finished is None
+                                                 and current.is_iv and current.light)
             self.light_plot.fit_view()

@@ -155,7 +155,7 @@ class BenchWindow(QMainWindow):
     def _redraw(self) -> None:
         if not self.model.dirty:
             return
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.thread_time()
         changes = self.model.take_changes()
         self.plots.redraw(self.model, changes)
         if changes.new_run:
@@ -164,7 +164,8 @@ class BenchWindow(QMainWindow):
             self.results.add_trace(trace, show=True)
         if changes.status:
             self._update_status()
-        self.stats.frame((time.perf_counter() - t0) * 1e3, changes.oldest_point_time)
+        self.stats.frame((time.perf_counter() - t0) * 1e3, changes.oldest_point_time,
+                         (time.thread_time() - c0) * 1e3)
         fin = self.model.finished
         if fin is not None and self._finished_shown != fin.run_uid:
             self._finished_shown = fin.run_uid
