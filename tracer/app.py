@@ -33,6 +33,7 @@ import numpy as np
 
 from tracer.conventions import generator_current
 from tracer.logbook import LogbookWriter, default_logbook_path
+from tracer.logbook.backend import is_url, logbook_target
 
 VISA_BACKEND = "@py"     # pyvisa-py: pure Python, TCP/IP sockets, no vendor library
 ROLES = ("smu", "light", "thermometer", "switch")
@@ -50,8 +51,9 @@ class Application:
     bench: Any                        # tracer.engine.Bench
     profile: Any                      # tracer.bench_profile.BenchProfile
     writer: LogbookWriter
-    logbook_path: Path
+    logbook_path: Path                # or a RedactedUrl (a PostgreSQL store; prints no secret)
     simulator: Any = None             # the running simulated bench, when built in
+    forwarder: Any = None             # tracer.logbook.forward.Forwarder, when forwarding
     _stack: contextlib.ExitStack = field(default_factory=contextlib.ExitStack, repr=False)
     _closed: bool = field(default=False, repr=False)
 
@@ -285,12 +287,18 @@ def _quietly(fn: Callable[[], Any]) -> None:
 def build_application(bench_file: Path | str | None = None, *, logbook_path: Path | str | None = None,
                       synchronous: str = "NORMAL", scenario: Any = None, time_scale: float | None = None,
                       seed: int | None = None, engine_options: Any = None,
-                      analyzer: Callable[[Any], Mapping] | None | bool = True) -> Application:
+                      analyzer: Callable[[Any], Mapping] | None | bool = True,
+                      forward_to: Any = None, forward_options: Mapping[str, Any] | None = None
+                      ) -> Application:
     """Assemble a ready engine (see the module docstring).
 
     ``bench_file``: a bench profile; None starts the built-in simulated bench (``scenario``,
-    ``time_scale``, ``seed`` go to it). ``logbook_path``: None = the default logbook.
-    ``analyzer``: True = :func:`make_analyzer`, False/None = no analysis, or a callable.
+    ``time_scale``, ``seed`` go to it). ``logbook_path``: a file or a ``postgresql://`` URL;
+    None = the profile's ``logbook``, else the default logbook. ``forward_to``: a shared
+    store (URL) to which a background :class:`tracer.logbook.forward.Forwarder` copies
+    every run once it has ended (None = the profile's ``forward_to``, if any);
+    ``forward_options`` go to the Forwarder. ``analyzer``: True = :func:`make_analyzer`,
+    False/None = no analysis, or a callable.
     Raises ``BenchProfileError`` (bad profile), ``LogbookError``, ``ApplicationError``.
     """
     from tracer.bench_profile import load_bench_profile
@@ -298,7 +306,25 @@ def build_application(bench_file: Path | str | None = None, *, logbook_path: Pat
 
     stack = contextlib.ExitStack()
     try:
-        path = Path(logbook_path) if logbook_path is not None else default_logbook_path()
+        early = load_bench_profile(bench_file) if bench_file is not None else None
+        if logbook_path is None and early is not None and early.logbook is not None:
+            logbook_path = early.logbook
+        if forward_to is None and early is not None:
+            forward_to = early.forward_to
+        if logbook_path is None:
+            path = default_logbook_path()
+        else:
+            path = logbook_target(logbook_path) if isinstance(logbook_path, str) else logbook_path
+            path = path if is_url(path) else Path(path)
+        forwarder = None
+        if forward_to is not None:
+            from tracer.logbook.forward import Forwarder
+
+            if is_url(path):
+                raise ApplicationError("forwarding copies runs from a local logbook file; the "
+                                       f"logbook here is already a shared store ({path})")
+            forwarder = Forwarder(path, forward_to, **dict(forward_options or {}))
+            stack.callback(forwarder.close)     # after the writer (LIFO): a last pass
         writer = LogbookWriter(path, synchronous=synchronous)
         stack.callback(writer.close)            # closed after the engine (LIFO)
 
@@ -332,9 +358,13 @@ def build_application(bench_file: Path | str | None = None, *, logbook_path: Pat
             analyzer = None
         engine = Engine(bench, analyzer=analyzer, options=engine_options)
         engine.subscribe(writer, critical=True)     # first: durable before anyone sees it
+        if forwarder is not None:
+            engine.subscribe(forwarder.notify, batch=True)   # wakes it when a run ends
+            forwarder.start()
         stack.callback(engine.close)
         return Application(engine=engine, bench=bench, profile=profile, writer=writer,
-                           logbook_path=writer.path, simulator=simulator, _stack=stack)
+                           logbook_path=writer.path, simulator=simulator, forwarder=forwarder,
+                           _stack=stack)
     except BaseException:
         stack.close()
         raise

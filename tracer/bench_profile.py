@@ -16,9 +16,13 @@ from __future__ import annotations
 import dataclasses
 import difflib
 import importlib
+import os
 import re
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any, Collection, Iterable
+
+from tracer.logbook.backend import RedactedUrl, is_url, redact_url
 
 from tracer.plan import Limits
 from tracer.protocol._fields import (INVALID, Choice, Ctx, Custom, Field, Number, Text, describe,
@@ -77,6 +81,11 @@ class BenchProfile:
     usual_series_resistance_ohm: float | None = None
     simulator_control: str | None = None      # "host:port" of a simulated bench's harness
     source: str = field(default="<text>", compare=False)
+    # where this bench keeps its runs: a file (relative to the profile's folder) or a
+    # postgresql:// URL; and the shared store its runs are forwarded to. URLs are kept as
+    # tracer.logbook.backend.RedactedUrl: their text has no credentials.
+    logbook: Any = None
+    forward_to: Any = None
 
     @property
     def roles(self) -> tuple[str, ...]:
@@ -128,6 +137,8 @@ class BenchProfile:
             "instability_class": self.instability_class,
             "usual_series_resistance_ohm": self.usual_series_resistance_ohm,
             "simulated": self.simulated,
+            **({"logbook": str(self.logbook)} if self.logbook is not None else {}),
+            **({"forward_to": str(self.forward_to)} if self.forward_to is not None else {}),
         }
 
 
@@ -164,7 +175,30 @@ def load_bench_profile(source: Any, *, known_drivers: Iterable[str] | None = Non
         if not ctx.problems:  # pragma: no cover - every INVALID comes with a problem
             ctx.add((), "is not a valid bench profile")
         raise BenchProfileError(ctx.problems)
+    if profile.logbook is not None and not is_url(profile.logbook):
+        where = Path(doc.file).parent if os.path.isfile(doc.file) else Path.cwd()
+        profile = dataclasses.replace(profile, logbook=where / Path(profile.logbook).expanduser())
     return dataclasses.replace(profile, source=doc.file)
+
+
+def _store_url(ctx: Ctx, path: tuple, value: Any) -> Any:
+    """A postgresql:// URL; a problem report never repeats its credentials."""
+    if not isinstance(value, str) or not is_url(value.strip()) or any(c.isspace() for c in value.strip()):
+        shown = redact_url(value) if isinstance(value, str) else describe(value)
+        ctx.add(path, f"{shown!r} is not a postgresql:// URL", value=shown,
+                allowed="postgresql://user@host:port/database (password in ~/.pgpass or PGPASSWORD)")
+        return INVALID
+    return RedactedUrl(value.strip())
+
+
+def _logbook_target(ctx: Ctx, path: tuple, value: Any) -> Any:
+    if isinstance(value, str) and is_url(value.strip()):
+        return _store_url(ctx, path, value)
+    if not isinstance(value, str) or not value.strip() or len(value) > 4096:
+        ctx.add(path, f"expected a logbook file or a postgresql:// URL; got {describe(value)}",
+                value=value, allowed="a file path or postgresql://user@host:port/database")
+        return INVALID
+    return value.strip()
 
 
 def _validate(ctx: Ctx, raw: dict, drivers: Collection[str] | None) -> BenchProfile | None:
@@ -188,6 +222,8 @@ def _validate(ctx: Ctx, raw: dict, drivers: Collection[str] | None) -> BenchProf
         "usual_series_resistance_ohm": Field(Number(0, 10_000, lo_open=True, unit="Ω")),
         "simulator_control": Field(Text(100, pattern=_HOST_PORT.pattern,
                                         pattern_help="host:port", min_len=1)),
+        "logbook": Field(Custom(_logbook_target, "a logbook file or a postgresql:// URL")),
+        "forward_to": Field(Custom(_store_url, "a postgresql:// URL")),
     }
     v = read_mapping(ctx, ("bench",), body, fields, what="bench")
     if v is None:
@@ -215,7 +251,8 @@ def _validate(ctx: Ctx, raw: dict, drivers: Collection[str] | None) -> BenchProf
     return BenchProfile(name=v["name"], instruments=instruments, hard_limits=limits,
                         reference_cell=reference, instability_class=v["instability_class"],
                         usual_series_resistance_ohm=v["usual_series_resistance_ohm"],
-                        simulator_control=v["simulator_control"])
+                        simulator_control=v["simulator_control"],
+                        logbook=v["logbook"], forward_to=v["forward_to"])
 
 
 def _instruments(ctx: Ctx, raw: Any, drivers: Collection[str] | None) -> Any:

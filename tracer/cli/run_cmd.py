@@ -87,9 +87,16 @@ def _common_options(p: argparse.ArgumentParser) -> None:
                    help="sample id to record instead of the protocol's sample.id")
     p.add_argument("--operator", metavar="NAME", default=None,
                    help="who ran it (default: the protocol's metadata.operator, else the login name)")
-    p.add_argument("--logbook", metavar="PATH", type=Path, default=None,
-                   help="logbook file (default: $TRACER_LOGBOOK, else "
-                        "$XDG_DATA_HOME/tracer/logbook.sqlite, else ~/.local/share/tracer/logbook.sqlite)")
+    from tracer.logbook.backend import logbook_target
+
+    p.add_argument("--logbook", metavar="PATH|URL", type=logbook_target, default=None,
+                   help="logbook file or postgresql:// URL (default: the bench profile's logbook, "
+                        "else $TRACER_LOGBOOK, else $XDG_DATA_HOME/tracer/logbook.sqlite, else "
+                        "~/.local/share/tracer/logbook.sqlite)")
+    p.add_argument("--forward-to", metavar="URL", type=logbook_target, default=None,
+                   help="shared logbook (postgresql://user@host:port/db) that each ended run is "
+                        "copied to in the background; the run is kept locally first, and what "
+                        "cannot be sent now is sent later (default: the bench profile's forward_to)")
     p.add_argument("--out", metavar="DIR", type=Path, default=Path("."),
                    help="export the run (CSV per sweep and a PNG of the curves) into DIR/<run uid>/ "
                         "(default: the current folder)")
@@ -293,7 +300,8 @@ def execute(protocol_path: Path, *, bench_file: Path | None = None, sample: str 
             time_scale: float | None = None, seed: int | None = None,
             stdout: TextIO | None = None, stderr: TextIO | None = None,
             live_line: bool | None = None, engine_options: Any = None,
-            on_started: Any = None) -> int:
+            on_started: Any = None, forward_to: Any = None,
+            forward_options: Any = None) -> int:
     """Run ``protocol_path`` and report; returns the exit status (see the module docstring).
 
     ``on_started(app, run_uid)`` is called once the run has started (tests use it to reach
@@ -325,7 +333,8 @@ def execute(protocol_path: Path, *, bench_file: Path | None = None, sample: str 
     try:
         app = build_application(bench_file, logbook_path=logbook, synchronous=sync.upper(),
                                 scenario=scenario, time_scale=time_scale, seed=seed,
-                                engine_options=engine_options)
+                                engine_options=engine_options, forward_to=forward_to,
+                                forward_options=forward_options)
     except (BenchProfileError, ProtocolError) as exc:
         _problems(exc, err)
         return EXIT_BAD_INPUT
@@ -368,6 +377,8 @@ def execute(protocol_path: Path, *, bench_file: Path | None = None, sample: str 
             progress.close()
         code = _exit_code(finished, interrupts.count)
         code = _report(app.logbook_path, run_uid, out_dir, code, finished, as_json, out, err)
+        if app.forwarder is not None:
+            _forwarding_note(app.forwarder, run_uid, err if as_json else out)
         return EXIT_INTERRUPTED if interrupts.count and code == EXIT_OK else code
     except KeyboardInterrupt:
         # a second signal after the run ended, or one before it started: the engine was
@@ -377,6 +388,20 @@ def execute(protocol_path: Path, *, bench_file: Path | None = None, sample: str 
         return EXIT_INTERRUPTED
     finally:
         interrupts.restore()
+
+
+def _forwarding_note(forwarder: Any, run_uid: str, stream: TextIO) -> None:
+    """One line: was the run copied to the shared logbook (the forwarder has closed)."""
+    sent = any(run_uid in r.forwarded or run_uid in r.already_there for r in forwarder.reports)
+    if sent:
+        print(f"shared logbook: run {run_uid} forwarded to {forwarder.key}", file=stream)
+        return
+    last = forwarder.last_report
+    why = (last.unreachable or last.failed.get(run_uid)) if last is not None else None
+    print(f"shared logbook: run {run_uid} not forwarded yet"
+          + (f" ({why})" if why else "")
+          + f"; it is kept in the local logbook and goes with the next forwarding "
+            f"(or now: tracer logbook forward --to {forwarder.key})", file=stream)
 
 
 def _login() -> str:
@@ -475,7 +500,8 @@ def cmd_run(args: argparse.Namespace) -> int:
     return execute(args.protocol, bench_file=args.bench, sample=args.sample,
                    operator=args.operator, logbook=args.logbook, out_dir=args.out,
                    as_json=args.json, sync=args.sync, scenario=args.sim_scenario,
-                   time_scale=args.sim_time_scale, seed=args.sim_seed)
+                   time_scale=args.sim_time_scale, seed=args.sim_seed,
+                   forward_to=args.forward_to)
 
 
 def demo_protocol_path() -> Path:

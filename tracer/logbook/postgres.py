@@ -154,3 +154,19 @@ def store_identity(conn: PgConnection) -> dict[str, Any]:
     schema = conn.execute("SELECT current_schema()").fetchone()[0]
     return {"host": info.host, "port": info.port, "database": info.dbname, "schema": schema,
             "server_version": info.server_version}
+
+
+def has_logbook(url: str | RedactedUrl, *, connect_timeout_s: float = DEFAULT_CONNECT_TIMEOUT_S) -> bool:
+    """Whether the database (schema) at ``url`` holds a logbook, without creating one.
+    Raises :class:`tracer.logbook.LogbookError` when it cannot be reached."""
+    from tracer.logbook.schema import VERSION_TABLE_EXISTS
+    from tracer.logbook.store import LogbookError
+
+    try:
+        conn = connect(url, connect_timeout_s=connect_timeout_s)
+    except StoreUnreachable as exc:
+        raise LogbookError(str(exc)) from None
+    try:
+        return bool(conn.execute(VERSION_TABLE_EXISTS[POSTGRESQL]).fetchone()[0])
+    finally:
+        conn.close()
