@@ -226,6 +226,9 @@ class CurvePlot(TimedPlotWidget):
         self._empty_view()
         self._fit_in_legend = False
         self._power_in_legend = False
+        # legend samples for the power and fit lines, kept at the end of the legend
+        self._power_sample = pg.PlotDataItem(pen=_pen("#606060", "DotLine", 1.5))
+        self._fit_sample = pg.PlotDataItem(pen=_pen(palette.FIT_COLOUR, "SolidLine", 1.5))
         self.items: dict[str, _Items] = {}
         self.overlay_items: dict[str, pg.PlotDataItem] = {}
 
@@ -252,7 +255,10 @@ class CurvePlot(TimedPlotWidget):
         vb = self.getPlotItem().getViewBox()
         if not self._auto_view:
             return
-        if self.log_y or self.power_view is None:
+        if self.log_y:
+            self._fit_log_view(vb)
+            return
+        if self.power_view is None:
             if self.items or self.overlay_items:
                 vb.enableAutoRange()
             return
@@ -283,7 +289,9 @@ class CurvePlot(TimedPlotWidget):
         if not (np.isfinite(x0) and np.isfinite(x1) and np.isfinite(ymax)):
             return
         top = 1.12 * ymax if ymax > 0 else 1.0
-        bottom = min(0.0, max(ymin, -0.35 * top)) - 0.05 * top
+        # below zero: the curve past Voc down to -35 % of the top, and never less than
+        # -25 %, which keeps the bottom-left corner free for the legend
+        bottom = min(-0.25 * top, max(ymin, -0.35 * top) - 0.05 * top)
         pad = 0.03 * (x1 - x0 or 1.0)
         ptop = 1.12 * pmax if np.isfinite(pmax) and pmax > 0 else 1.0
         wanted = (x0 - pad, x1 + pad, bottom, top, ptop)
@@ -315,6 +323,47 @@ class CurvePlot(TimedPlotWidget):
         vb.setRange(xRange=(wanted[0], wanted[1]), yRange=(bottom, top), padding=0)
         self.power_view.disableAutoRange()
         self.power_view.setYRange(bottom / top * wanted[4], wanted[4], padding=0)
+
+    LOG_DECADES = 6.0
+
+    def _fit_log_view(self, vb) -> None:
+        """Semilog plot: the data's voltage span; |current| down to at most six decades
+        below its largest value (the dip where the current changes sign is cut there)."""
+        xs, ys = [], []
+        for item in [i.current for i in self.items.values()] + list(self.overlay_items.values()):
+            if item.xData is not None and len(item.xData):
+                xs.append(item.xData)
+                ys.append(item.yData)
+        if not xs:
+            return
+        with np.errstate(all="ignore"):
+            x = np.concatenate(xs)
+            y = np.concatenate(ys)
+            y = y[np.isfinite(y) & (y > 0)]
+            if not y.size:
+                return
+            x0, x1 = np.nanmin(x), np.nanmax(x)
+            top = np.log10(y.max()) + 0.15
+            bottom = max(np.log10(y.min()), top - 0.15 - self.LOG_DECADES) - 0.15
+        pad = 0.03 * (x1 - x0 or 1.0)
+        wanted = (x0 - pad, x1 + pad, bottom, top)
+        old = getattr(self, "_view", None)
+        if old is not None and self.running_sweep:
+            # grow only while a sweep runs (doubling the span on the side it grows)
+            span = x1 - x0 + 2 * pad
+            lo = old[0] if x0 - pad >= old[0] else x0 - pad - span
+            hi = old[1] if x1 + pad <= old[1] else x1 + pad + span
+            ylo = old[2] if bottom >= old[2] else bottom - 1.0
+            yhi = old[3] if top <= old[3] else top + 1.0
+            wanted = (lo, hi, ylo, yhi)
+            if wanted == old:
+                return
+        elif old is not None and all(abs(a - b) < 0.02 * max(abs(b), 1e-9) for a, b in
+                                     zip(wanted, old)):
+            return
+        self._view = wanted
+        vb.disableAutoRange()
+        vb.setRange(xRange=wanted[:2], yRange=wanted[2:], padding=0)
 
     def _view_close_enough(self, wanted) -> bool:
         """The present range still shows everything wanted and is not more than ~8 % too
@@ -382,10 +431,10 @@ class CurvePlot(TimedPlotWidget):
         self._auto_view = True
         self._view = None
         if self._fit_in_legend:
-            self.legend.removeItem("model fit")
+            self.legend.removeItem(self._fit_sample)
             self._fit_in_legend = False
         if self._power_in_legend:
-            self.legend.removeItem("power (right axis)")
+            self.legend.removeItem(self._power_sample)
             self._power_in_legend = False
         self._update_placeholder()
 
@@ -407,6 +456,7 @@ class CurvePlot(TimedPlotWidget):
         current.setZValue(10)
         self.getPlotItem().addItem(current)
         self.legend.addItem(current, trace.label())
+        self._legend_tail()
         items = _Items(current=current, markers=markers, colour=colour, style=style)
         current.opts["_planned"] = int(trace.started.points_planned or 0)
         self.items[trace.uid] = items
@@ -423,9 +473,17 @@ class CurvePlot(TimedPlotWidget):
         self.power_view.addItem(power)
         items.power = power
         if not self._power_in_legend:
-            sample = pg.PlotDataItem(pen=_pen("#606060", "DotLine", 1.5))
-            self.legend.addItem(sample, "power (right axis)")
             self._power_in_legend = True
+            self._legend_tail()
+
+    def _legend_tail(self) -> None:
+        """Keep "power" and "model fit" after the sweeps in the legend."""
+        for shown, sample, name in ((self._power_in_legend, self._power_sample,
+                                     "power (right axis)"),
+                                    (self._fit_in_legend, self._fit_sample, "model fit")):
+            if shown:
+                self.legend.removeItem(sample)
+                self.legend.addItem(sample, name)
 
     def keep_within_budgets(self) -> None:
         """Many sweeps on one plot: the oldest lose their markers first (their line keeps
@@ -485,8 +543,8 @@ class CurvePlot(TimedPlotWidget):
             items.fit.setZValue(20)
             pi.addItem(items.fit)
             if not self._fit_in_legend:
-                self.legend.addItem(items.fit, "model fit")
                 self._fit_in_legend = True
+                self._legend_tail()
         items.fit.setData(*curve)
         figures = (trace.analysis or {}).get("data_figures") or {}
         vmp, imp = figures.get("vmp_v"), figures.get("imp_a")
@@ -619,6 +677,8 @@ class PlotArea(QWidget):
                 self.plot_for(trace).show_fit(trace, model.current_scale)
         if changes.new_run or changes.added or changes.grown or changes.analysed:
             current = model.current
-            self.light_plot.running_sweep = bool(current is not None and current.finished is None
-                                                 and current.is_iv and current.light)
+            running = current is not None and current.finished is None and current.is_iv
+            self.light_plot.running_sweep = bool(running and current.light)
+            self.dark_plot.running_sweep = bool(running and not current.light)
             self.light_plot.fit_view()
+            self.dark_plot.fit_view()

@@ -110,9 +110,9 @@ class SafetyStrip(QFrame):
 
     def set_limits(self, limits, bench_limits) -> None:
         if limits:
-            self.limits.setText(f"<b>Limits in force:</b> {limits_text(limits)}")
+            self.limits.setText(f"<b>Limits in force</b><br>{limits_text(limits)}")
         else:
-            self.limits.setText("<b>Limits in force:</b> none (no run yet)")
+            self.limits.setText("<b>Limits in force</b><br>none yet (pick a protocol)")
         if bench_limits is not None:
             self._bench_limits = bench_limits
         self.bench_limits.setText(f"bench hard limits: {limits_text(self._bench_limits)}"
