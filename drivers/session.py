@@ -39,6 +39,7 @@ ERROR_QUERY = "SYST:ERR?"
 _ERROR_QUEUE_READS = 40          # more than any queue depth (16 in the dialect)
 _DRAIN_READ_S = 0.1              # a drain read waits this long for stray bytes
 _RESYNC_LINES = 64               # stray lines tolerated before the identity comes back
+_READ_SLICE_S = 0.25             # a reply is awaited in slices this long (closed link noticed)
 
 ConnectHook = Callable[["ScpiSession"], None]
 
@@ -145,6 +146,7 @@ class ScpiSession:
         full = f"{command};:{ERROR_QUERY}"
         with self.lock:
             self._ensure_ready(command)
+            self._check_link(command)
             self._state = "dirty"        # until the whole reply has been read
             self._write(full)
             start = self._read_bytes(command, 2, timeout_s)
@@ -284,11 +286,20 @@ class ScpiSession:
         the write until the reply is in, so an interruption (a timeout, Ctrl-C) can never
         leave a reply waiting to be taken as the answer to the next query."""
         self._ensure_ready(command)
+        self._check_link(command)
         self._state = "dirty"
         self._write(message)
         line = self._read_line(command, timeout_s)
         self._state = "ready"
         return line
+
+    def _check_link(self, command: str) -> None:
+        """Notice a connection the instrument has closed before sending a query: pyvisa-py
+        would wait out the whole time-out on the closed socket (and a run's watchdog would
+        report a silent instrument instead of a lost link)."""
+        if peer_closed(self._resource):
+            self._state = "broken"
+            raise self._link_lost(command, "connection closed by the instrument")
 
     # ------------------------------------------------------------------ raw I/O
     def _write(self, command: str) -> None:
@@ -318,22 +329,36 @@ class ScpiSession:
                 pass  # resource gone; the state already says so
 
     def _read_raw(self, command: str, timeout_s: float | None) -> bytes:
-        try:
-            data = self._with_timeout(timeout_s, self._resource.read_raw)
-        except VisaIOError as exc:
-            if peer_closed(self._resource):
+        """One reply line. Read in slices of at most ``_READ_SLICE_S`` up to the time-out, so
+        that a connection the instrument closes while we wait is noticed within a slice
+        (pyvisa-py itself would wait out the whole time-out on a closed socket)."""
+        waited = self.timeout_s if timeout_s is None else timeout_s
+        deadline = time.monotonic() + waited
+        data = b""
+        while True:
+            started = time.monotonic()
+            slice_s = min(_READ_SLICE_S, max(deadline - started, 0.001))
+            try:
+                data += self._with_timeout(slice_s, self._resource.read_raw)
+            except VisaIOError as exc:
+                if peer_closed(self._resource):
+                    self._state = "broken"
+                    raise self._link_lost(command, "connection closed by the instrument") from exc
+                now = time.monotonic()
+                if now < deadline and now - started >= 0.5 * slice_s:
+                    continue     # only this slice ran out; wait on until the time-out
+                if data:
+                    self._garbled(command, data, "reply not terminated by a newline")
+                self._state = "dirty"
+                raise self._link_lost(command, f"no complete reply within {waited:g} s "
+                                               f"({exc.abbreviation})") from exc
+            except OSError as exc:
                 self._state = "broken"
-                raise self._link_lost(command, "connection closed by the instrument") from exc
-            self._state = "dirty"
-            waited = self.timeout_s if timeout_s is None else timeout_s
-            raise self._link_lost(command, f"no complete reply within {waited:g} s "
-                                           f"({exc.abbreviation})") from exc
-        except OSError as exc:
-            self._state = "broken"
-            raise self._link_lost(command, f"read failed ({exc})") from exc
-        if not data.endswith(b"\n"):
-            self._garbled(command, data, "reply not terminated by a newline")
-        return data
+                raise self._link_lost(command, f"read failed ({exc})") from exc
+            if data.endswith(b"\n"):
+                return data
+            if time.monotonic() >= deadline:
+                self._garbled(command, data, "reply not terminated by a newline")
 
     def _read_bytes(self, command: str, count: int, timeout_s: float | None) -> bytes:
         try:
