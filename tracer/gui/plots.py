@@ -588,15 +588,43 @@ class CurvePlot(TimedPlotWidget):
 
 
 class TrackingPlot(CurvePlot):
-    """Holds and MPP tracking: power against time."""
+    """Holds and MPP tracking against time: power on the left axis (markers and line),
+    terminal voltage on the right (thin dashed line, the same colour) — at open circuit the
+    power is zero and the voltage is the story."""
 
     def __init__(self, stats: FrameStats, parent: QWidget | None = None):
-        super().__init__(stats, placeholder="holds and MPP tracking appear here", parent=parent)
-        self.getPlotItem().setLabel("bottom", "time since the run started (s)", **LABEL_STYLE)
+        super().__init__(stats, with_power=True, placeholder="holds and MPP tracking appear here",
+                         parent=parent)
+        pi = self.getPlotItem()
+        pi.setLabel("bottom", "time since the run started (s)", **LABEL_STYLE)
+        pi.setLabel("right", "V, voltage (V)", **LABEL_STYLE)
+        self._power_sample = pg.PlotDataItem(pen=_pen("#606060", "DashLine", 1.0))
 
     def set_axis_labels(self, current_unit: str, power_unit: str, density: bool) -> None:
         p = "power density" if density else "power"
         self.getPlotItem().setLabel("left", f"P, {p} ({power_unit})", **LABEL_STYLE)
+
+    def fit_view(self) -> None:
+        if not (self.items or self.overlay_items):
+            return
+        vb = self.getPlotItem().getViewBox()
+        vb.enableAutoRange()
+        self.power_view.enableAutoRange(axis=pg.ViewBox.YAxis)   # x follows the link
+
+    def _legend_tail(self) -> None:
+        if self._power_in_legend:
+            self.legend.removeItem(self._power_sample)
+            self.legend.addItem(self._power_sample, "voltage (right axis)")
+
+    def _add_power(self, items: _Items) -> None:
+        volts = pg.PlotDataItem(pen=_pen(items.colour, "DashLine", 1.0, palette.POWER_ALPHA),
+                                connect="finite")
+        volts.setDownsampling(auto=True, method="peak")
+        self.power_view.addItem(volts)
+        items.power = volts
+        if not self._power_in_legend:
+            self._power_in_legend = True
+            self._legend_tail()
 
     def update_sweep(self, trace: SweepTrace) -> None:
         items = self.items.get(trace.uid)
@@ -605,7 +633,13 @@ class TrackingPlot(CurvePlot):
         if items.markers and len(trace.buffer) > MARKER_LIMIT:
             items.current.setSymbol(None)
             items.markers = False
-        items.current.setData(trace.column("t_s"), trace.column("p"))
+        t = trace.column("t_s")
+        items.current.setData(t, trace.column("p"))
+        if items.power is None and len(t) > 1:
+            self._add_power(items)
+        if items.power is not None:
+            items.power.setData(t, trace.column("voltage_v"))
+        self.fit_view()
 
 
 class PlotArea(QWidget):

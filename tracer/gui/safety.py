@@ -19,10 +19,20 @@ CAUTION = ("CAUTION: this window switches a real source. Follow your lab's safet
 
 
 def _pill(label: QLabel, text: str, colours: tuple[str, str]) -> None:
+    """Set a status label's text and colours — only when they change (a style sheet change
+    restyles the widget; this runs on every redraw during a run)."""
+    if label.property("pill") == (text, colours):
+        return
+    label.setProperty("pill", (text, colours))
     fg, bg = colours
     label.setText(text)
     label.setStyleSheet(f"QLabel{{background:{bg};color:{fg};font-weight:bold;"
                         "border-radius:5px;padding:4px 10px}")
+
+
+def _set_text(label: QLabel, text: str) -> None:
+    if label.text() != text:
+        label.setText(text)
 
 
 class SafetyStrip(QFrame):
@@ -110,32 +120,32 @@ class SafetyStrip(QFrame):
 
     def set_limits(self, limits, bench_limits) -> None:
         if limits:
-            self.limits.setText(f"<b>Limits in force</b><br>{limits_text(limits)}")
+            _set_text(self.limits, f"<b>Limits in force</b><br>{limits_text(limits)}")
         else:
-            self.limits.setText("<b>Limits in force</b><br>none yet (pick a protocol)")
+            _set_text(self.limits, "<b>Limits in force</b><br>none yet (pick a protocol)")
         if bench_limits is not None:
             self._bench_limits = bench_limits
-        self.bench_limits.setText(f"bench hard limits: {limits_text(self._bench_limits)}"
-                                  if self._bench_limits else "")
+        _set_text(self.bench_limits, f"bench hard limits: {limits_text(self._bench_limits)}"
+                  if self._bench_limits else "")
 
     def update_from(self, model: RunModel, estop_busy: bool = False) -> None:
         out = model.output
         stamp = time.strftime("%H:%M:%S", time.localtime(out.time))
         if estop_busy:
             _pill(self.output, "OUTPUT → OFF…", palette.LIVE_COLOURS)
-            self.output_source.setText("emergency stop in progress")
+            _set_text(self.output_source, "emergency stop in progress")
         elif out.on is True:
             _pill(self.output, "● OUTPUT ON", palette.LIVE_COLOURS)
-            self.output_source.setText(f"{out.source} · {stamp}")
+            _set_text(self.output_source, f"{out.source} · {stamp}")
         elif out.on is False:
             _pill(self.output, "○ OUTPUT OFF", palette.OK_COLOURS)
-            self.output_source.setText(f"{out.source} · {stamp}")
+            _set_text(self.output_source, f"{out.source} · {stamp}")
         elif out.alarm:
             _pill(self.output, "⚠ OUTPUT NOT VERIFIED OFF", palette.ALARM_COLOURS)
-            self.output_source.setText(f"{out.source} · {stamp}")
+            _set_text(self.output_source, f"{out.source} · {stamp}")
         else:
             _pill(self.output, "OUTPUT ?", palette.UNKNOWN_COLOURS)
-            self.output_source.setText(out.source)
+            _set_text(self.output_source, out.source)
         self.output_source.setToolTip(self.output_source.text())
         if model.interlock_open is True:
             _pill(self.interlock, "INTERLOCK OPEN", palette.ALARM_COLOURS)
@@ -143,8 +153,7 @@ class SafetyStrip(QFrame):
             _pill(self.interlock, "interlock closed", palette.OK_COLOURS)
         else:
             _pill(self.interlock, "interlock ?", palette.UNKNOWN_COLOURS)
-        self.interlock_source.setText(model.interlock_source)
-        self.set_limits(model.limits, None)
+        _set_text(self.interlock_source, model.interlock_source)
 
 
 class Banner(QFrame):

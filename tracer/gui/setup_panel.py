@@ -48,6 +48,7 @@ class SetupPanel(QWidget):
         self.validation = Validation(False, problems=("no protocol yet",))
         self._running = False
         self._busy = False
+        self._state_applied = False
 
         layout = QVBoxLayout(self)
         layout.setContentsMargins(6, 6, 6, 6)
@@ -322,6 +323,9 @@ class SetupPanel(QWidget):
 
     # ------------------------------------------------------------------ state
     def set_running(self, running: bool) -> None:
+        if running == self._running and self._state_applied:
+            return
+        self._state_applied = True
         self._running = running
         for w in (self.picker, self.open_button, self.sample_id, self.area, self.cells,
                   self.operator):

@@ -72,6 +72,7 @@ class BenchWindow(QMainWindow):
         self._protocol_file = ""
         self._shown_alarm = None
         self._split_done = False
+        self._plan_limits: dict | None = None
 
         self.setWindowTitle(f"tracer — bench window — {bench_info.name}")
         self.setObjectName("bench-window")
@@ -174,6 +175,9 @@ class BenchWindow(QMainWindow):
     def _update_status(self) -> None:
         m = self.model
         self.safety.update_from(m, estop_busy=self._estop_busy)
+        # limits in force: the run's while it goes, else those of the protocol ready to start
+        self.safety.set_limits(m.limits if m.running or self._plan_limits is None
+                               else self._plan_limits, None)
         text = m.status_text()
         alarm = m.alarm
         if alarm is not None:
@@ -183,19 +187,24 @@ class BenchWindow(QMainWindow):
         elif self._shown_alarm is not None:
             self.banner.hide()
         self._shown_alarm = alarm
-        self.status_label.setText(text)
-        self.points_label.setText(f"{m.points_total} points" if m.run is not None else "")
+        if self.status_label.text() != text:
+            self.status_label.setText(text)
+        points = f"{m.points_total} points" if m.run is not None else ""
+        if self.points_label.text() != points:
+            self.points_label.setText(points)
         self.setup.set_running(m.running or bool(self.engine.running))
 
     # ------------------------------------------------------------------ set-up
     def _on_validated(self, validation) -> None:
         if validation.ok:
             plan = validation.plan
-            self.safety.set_limits(None if self.model.running else {
-                "voltage_v": plan.limits.voltage_v, "current_a": plan.limits.current_a,
-                "power_w": plan.limits.power_w, "reverse_voltage_v": plan.limits.reverse_voltage_v},
-                None)
-            self.plots.set_units(bool(plan.sample.area_cm2)) if self.model.run is None else None
+            lim = plan.limits
+            self._plan_limits = {"voltage_v": lim.voltage_v, "current_a": lim.current_a,
+                                 "power_w": lim.power_w, "reverse_voltage_v": lim.reverse_voltage_v}
+            if not self.model.running:
+                self.safety.set_limits(self._plan_limits, None)
+            if self.model.run is None:
+                self.plots.set_units(bool(plan.sample.area_cm2))
             if plan.sample.sample_id != self.history.sample_id:
                 self.history.set_sample(plan.sample.sample_id)
 
