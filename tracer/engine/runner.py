@@ -438,10 +438,13 @@ class Runner:
         light = self.bench.light
         if light is None:
             return
-        try:
-            self._io("light.shutter", light.shutter, False)
-        except BaseException:  # noqa: BLE001
-            log.warning("could not close the shutter after the fault", exc_info=True)
+        for attempt in (1, 2):   # a link the fault broke is reopened by the second try
+            try:
+                self._io("light.shutter", light.shutter, False)
+                return
+            except BaseException:  # noqa: BLE001
+                if attempt == 2:
+                    log.warning("could not close the shutter after the fault", exc_info=True)
 
     def seal(self) -> bool:
         """Claim the right to close the run for this thread; False if already claimed."""
