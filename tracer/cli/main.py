@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import logging
 import sys
 
 # Sub-command modules, in the order `tracer --help` lists them.
@@ -48,7 +49,31 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+class _OneLineFormatter(logging.Formatter):
+    """Warnings for a person at a terminal: one line each, the exception named but no
+    traceback (a program that wants tracebacks configures logging before calling main)."""
+
+    def format(self, record: logging.LogRecord) -> str:
+        text = f"tracer: {record.levelname.lower()}: {record.getMessage()}"
+        if record.exc_info and record.exc_info[1] is not None:
+            exc = record.exc_info[1]
+            text += f" ({type(exc).__name__}: {exc})"
+        return text.replace("\n", " ")
+
+
+def _configure_logging() -> None:
+    """Unless the caller set up logging, warnings go to stderr as single lines."""
+    root = logging.getLogger()
+    if root.handlers:
+        return
+    handler = logging.StreamHandler(sys.stderr)
+    handler.setFormatter(_OneLineFormatter())
+    handler.setLevel(logging.WARNING)
+    root.addHandler(handler)
+
+
 def main(argv: list[str] | None = None) -> int:
+    _configure_logging()
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):
