@@ -217,6 +217,8 @@ def test_uncertainties_are_quoted_with_two_significant_digits():
     assert fmt_pm(1285.34, 60.2) == "1285 ± 60"
     assert fmt_pm(0.58901, 0.000921) == "0.58901 ± 0.00092"
     assert fmt_pm(2.69e-12, 1.3e-13, scientific=True) == "(2.69 ± 0.13)e-12"
+    assert fmt_pm(0.08, 8.69e14) == "(0.0 ± 8.7)e+14"          # a fit that says nothing
+    assert fmt_pm(3e-12, 2e-11, scientific=True) == "(0.3 ± 2.0)e-11"
     assert fmt_pm(None, 1.0) == "–"
     assert fmt_pm(1.5, None) == "1.500"
 

@@ -174,6 +174,7 @@ class CurvePlot(TimedPlotWidget):
             # An axis (with its grid lines) is costly to paint; cache it as a pixmap, redrawn
             # only when its range changes (the range policy below changes it rarely).
             ax.setCacheMode(QGraphicsItem.CacheMode.DeviceCoordinateCache)
+            ax.setStyle(maxTickLevel=1)         # major and minor ticks/grid only: far cheaper
         pi.getAxis("left").setWidth(62)         # the plots' voltage axes line up
         pi.getAxis("right").setWidth(62)
         pi.setLabel("bottom", "voltage (V)", **LABEL_STYLE)

@@ -84,8 +84,9 @@ def fmt_pm(value: Any, uncertainty: Any, scale: float = 1.0, scientific: bool = 
     if u is None or u <= 0:
         return fmt(v) if not scientific else f"{v:.3e}"
     u = abs(u * scale)
-    if scientific or (v != 0 and (abs(v) >= 1e6 or abs(v) < 1e-3)):
-        e = int(math.floor(math.log10(abs(v)))) if v != 0 else int(math.floor(math.log10(u)))
+    if scientific or u >= 1e5 or (v != 0 and (abs(v) >= 1e6 or abs(v) < 1e-3)):
+        # one exponent for both, that of the larger: a useless fit (u >> |v|) shows as such
+        e = int(math.floor(math.log10(max(abs(v), u))))
         m, um = v / 10.0 ** e, u / 10.0 ** e
         d = min(max(0, 1 - int(math.floor(math.log10(um)))), 6)
         return f"({m:.{d}f} ± {um:.{d}f})e{e:+03d}"
