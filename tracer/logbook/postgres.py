@@ -13,6 +13,8 @@ the store's SQL is written once. Differences kept on purpose:
   PostgreSQL locks rows, not the database, so writers of different runs never wait for
   each other.
 - Integrity errors are ``psycopg.IntegrityError`` (the guards raise SQLSTATE 23000).
+- Commits are durable before they return: a session on a server whose default is
+  ``synchronous_commit=off`` sets it back to ``on`` (see :func:`connect`).
 
 Connection parameters missing from the URL (password, host, user...) come from libpq's
 environment variables and ``~/.pgpass`` (``PGPASSFILE``). Error messages never carry the
@@ -139,6 +141,17 @@ def connect(url: str | RedactedUrl, *, connect_timeout_s: float = DEFAULT_CONNEC
             f"cannot reach the shared logbook {url}: {describe_error(exc, url)}") from None
     except (ValueError, TypeError) as exc:        # a malformed URL
         raise StoreUnreachable(f"bad logbook URL {url}: {describe_error(exc, url)}") from None
+    try:
+        # A commit must be durable before it returns, whatever the server's default: the
+        # writer's contract (a point anyone has seen is kept) and the forwarder's (a run is
+        # recorded as forwarded only once the store has it) both rest on it. A server
+        # running with synchronous_commit=off would otherwise lose the last commits in a
+        # crash after having acknowledged them. Stronger settings are left as they are.
+        if raw.execute("SHOW synchronous_commit").fetchone()[0] == "off":
+            raw.execute("SET synchronous_commit TO on")
+    except psycopg.Error as exc:
+        raw.close()
+        raise StoreUnreachable(f"cannot use the shared logbook {url}: {describe_error(exc, url)}") from None
     return PgConnection(raw, url)
 
 
