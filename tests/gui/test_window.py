@@ -16,7 +16,7 @@ from PyQt6.QtCore import Qt
 from tracer import events as ev
 from tracer.logbook import Logbook
 
-from ._support import wait_finished
+from ._support import protocol_text, wait_finished
 
 pytestmark = pytest.mark.timeout(120)
 
@@ -42,7 +42,10 @@ def _record_threads(engine):
 
 
 def test_points_fill_the_plot_as_they_arrive_and_results_when_the_analysis_arrives(
-        qtbot, window, sim_app, quick_protocol):
+        qtbot, window, sim_app, tmp_path):
+    # 60 points, 10 ms settle each: the sweep spans many redraws
+    quick_protocol = tmp_path / "gui-paced.yaml"
+    quick_protocol.write_text(protocol_text("gui-paced", points=60, settle=0.01))
     plot = window.plots.light_plot
     seen_lengths = []
 
@@ -198,3 +201,25 @@ def test_the_poller_reads_the_instrument_off_the_gui_thread(qtbot, window, sim_a
     sim_app.simulator.inject("interlock")          # opened with no run going: the poll sees it
     qtbot.waitUntil(lambda: window.model.interlock_open is True, timeout=5000)
     qtbot.waitUntil(lambda: "INTERLOCK OPEN" in window.safety.interlock.text(), timeout=5000)
+
+
+def test_stop_ends_the_sweep_gracefully_with_the_output_off(qtbot, window, sim_app, slow_protocol):
+    _start(qtbot, window, slow_protocol)
+    qtbot.waitUntil(lambda: window.model.points_total >= 5, timeout=15_000)
+    assert window.setup.stop_button.isEnabled()
+    qtbot.mouseClick(window.setup.stop_button, Qt.MouseButton.LeftButton)
+    finished = wait_finished(qtbot, window)
+    assert finished.status == ev.RUN_ABORTED and "operator" in finished.reason
+    assert finished.output_verified_off
+    assert not sim_app.simulator.state()["smu"]["output_on"]
+    assert finished.points < 400
+
+
+def test_escape_is_an_emergency_stop_even_with_no_run(qtbot, window, sim_app):
+    calls = _record_threads(sim_app.engine)
+    window.activateWindow()
+    with qtbot.waitSignal(window.emergency_stop_done, timeout=5000) as blocker:
+        qtbot.keyClick(window.setup.editor, Qt.Key.Key_Escape)
+    assert blocker.args == [True]                           # read back off
+    assert calls and calls[0] is not threading.main_thread()
+    assert not sim_app.simulator.state()["smu"]["output_on"]
