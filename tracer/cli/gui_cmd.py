@@ -161,8 +161,15 @@ def cmd_gui(args: argparse.Namespace) -> int:
         print(f"tracer: {exc}", file=err)
         return EXIT_BAD_INPUT
 
-    if args.quit and not (os.environ.get("DISPLAY") or os.environ.get("WAYLAND_DISPLAY")):
-        os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+    has_display = bool(os.environ.get("DISPLAY") or os.environ.get("WAYLAND_DISPLAY")
+                       or os.environ.get("QT_QPA_PLATFORM") or not sys.platform.startswith("linux"))
+    if not has_display:
+        if not args.quit:
+            print("tracer: no display to open the window on (DISPLAY is not set). For a headless "
+                  "run use --run PROTOCOL --screenshot FILE --quit, or set "
+                  "QT_QPA_PLATFORM=offscreen.", file=err)
+            return EXIT_FAILED
+        os.environ["QT_QPA_PLATFORM"] = "offscreen"
     from PyQt6.QtCore import QTimer
     from PyQt6.QtWidgets import QApplication
 
