@@ -247,4 +247,10 @@ def cmd_gui(args: argparse.Namespace) -> int:
             ticker.stop()
             if window.isVisible():
                 window.close()
+        if args.run is not None and "code" not in outcome:
+            # the window was closed (or Ctrl-C) before the run's end was shown
+            fin = app.engine.wait(5.0)
+            if fin is not None:
+                outcome["code"] = {"completed": EXIT_OK, "aborted": EXIT_ABORTED}.get(
+                    fin.status, EXIT_FAILED)
         return outcome.get("code", code)
