@@ -35,7 +35,7 @@ REDACTED = "***"
 _SECRET_PARAMS = frozenset({"password", "sslpassword"})
 # key=value connection strings and URLs inside free text
 _KV_SECRET = re.compile(r"\b(password|sslpassword)\s*=\s*('(?:[^'\\]|\\.)*'|[^\s&]+)", re.IGNORECASE)
-_URL_USERINFO = re.compile(r"((?:postgresql|postgres)://)([^@/\s]*:[^@/\s]*)@", re.IGNORECASE)
+_URL_USERINFO = re.compile(r"([a-z][a-z0-9+.-]*://)([^@/\s]*:[^@/\s]*)@", re.IGNORECASE)
 
 
 class RedactedUrl(str):
@@ -76,6 +76,8 @@ def dialect_of_target(target: Any) -> str:
 def logbook_target(text: str) -> Path | RedactedUrl:
     """Command-line/profile text to a target: a URL (kept with its secret, shown
     redacted) or a file path."""
+    if isinstance(text, RedactedUrl):
+        return text                     # str() of it would drop the secret
     text = str(text).strip()
     if is_url(text):
         return RedactedUrl(text)
