@@ -488,7 +488,9 @@ class CurvePlot(TimedPlotWidget):
 
     def keep_within_budgets(self) -> None:
         """Many sweeps on one plot: the oldest lose their markers first (their line keeps
-        the direction's style), only the newest are named in the legend and show power."""
+        the direction's style), only the newest are named in the legend (the others are
+        drawn thin) and show power. One change per call (each restyles an item), so a
+        frame never pays for many; ``budget_pending`` stays set while more are due."""
         self.budget_pending = False
         ordered = list(self.items.values())
         if not ordered:
@@ -497,22 +499,26 @@ class CurvePlot(TimedPlotWidget):
                       for i in ordered[:-1])
         newest = ordered[-1]
         markers += newest.current.opts.get("_planned", 0) if newest.markers else 0
-        for items in ordered[:-1]:
-            if markers <= MARKER_BUDGET:
-                break
-            if items.markers:
-                markers -= len(items.current.xData) if items.current.xData is not None else 0
-                items.current.setSymbol(None)
-                items.markers = False
-        for items in ordered[:-LEGEND_SWEEPS]:
-            if items.in_legend:
-                self.legend.removeItem(items.current)
-                items.in_legend = False
-                # thin: a 1-pixel line is several times cheaper to paint than a wider one
-                items.current.setPen(_pen(items.colour, items.style, 1.0))
-        for items in ordered[:-POWER_SWEEPS]:
-            if items.power is not None and items.power.isVisible():
-                items.power.setVisible(False)
+        changes = []
+        if markers > MARKER_BUDGET:
+            changes += [("markers", i) for i in ordered[:-1] if i.markers][:1]
+        changes += [("legend", i) for i in ordered[:-LEGEND_SWEEPS] if i.in_legend][:1]
+        changes += [("power", i) for i in ordered[:-POWER_SWEEPS]
+                    if i.power is not None and i.power.isVisible()][:1]
+        if not changes:
+            return
+        what, items = changes[0]
+        if what == "markers":
+            items.current.setSymbol(None)
+            items.markers = False
+        elif what == "legend":
+            self.legend.removeItem(items.current)
+            items.in_legend = False
+            # thin: a 1-pixel line is several times cheaper to paint than a wider one
+            items.current.setPen(_pen(items.colour, items.style, 1.0))
+        else:
+            items.power.setVisible(False)
+        self.budget_pending = len(changes) > 1 or what == "markers"
 
     def update_sweep(self, trace: SweepTrace) -> None:
         items = self.items.get(trace.uid)
