@@ -7,7 +7,6 @@ import os
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
 
-import textwrap  # noqa: E402
 from pathlib import Path  # noqa: E402
 
 import pytest  # noqa: E402

@@ -11,9 +11,8 @@ rest on colour; the fitted model is a black line over the points.
 """
 from __future__ import annotations
 
-import math
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Sequence
 
 import numpy as np

@@ -6,7 +6,7 @@ from __future__ import annotations
 from typing import Any, Mapping
 
 from PyQt6.QtCore import Qt
-from PyQt6.QtGui import QFont, QGuiApplication
+from PyQt6.QtGui import QGuiApplication
 from PyQt6.QtWidgets import (QAbstractItemView, QComboBox, QFrame, QHBoxLayout, QHeaderView,
                              QLabel, QPushButton, QScrollArea, QSizePolicy, QTableWidget,
                              QTableWidgetItem, QVBoxLayout, QWidget)

@@ -6,8 +6,8 @@ import os
 from pathlib import Path
 from typing import Any, Callable
 
-from PyQt6.QtCore import Qt, QTimer, pyqtSignal
-from PyQt6.QtGui import QColor, QFont, QFontDatabase, QTextCursor, QTextFormat
+from PyQt6.QtCore import QTimer, pyqtSignal
+from PyQt6.QtGui import QColor, QFontDatabase, QTextCursor, QTextFormat
 from PyQt6.QtWidgets import (QComboBox, QDoubleSpinBox, QFileDialog, QFormLayout, QGroupBox,
                              QHBoxLayout, QLabel, QLineEdit, QListWidget, QListWidgetItem,
                              QPlainTextEdit, QPushButton, QSizePolicy, QSpinBox, QTextEdit,
