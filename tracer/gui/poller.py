@@ -43,7 +43,7 @@ class InstrumentPoller(QObject):
     def poll_now(self) -> None:
         self._wake.set()
 
-    def stop(self, timeout: float = 0.5) -> None:
+    def stop(self, timeout: float = 0.2) -> None:
         """Stop polling; a probe in flight is left to finish on its (daemon) thread."""
         self._stop.set()
         self._wake.set()
