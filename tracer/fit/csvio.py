@@ -17,6 +17,12 @@ import numpy as np
 from tracer.fit.errors import FitError
 
 REQUIRED_COLUMNS = ("voltage_v", "current_a")
+_SHOWN_CHARS = 40        # a field quoted in a message is cut to this length
+_SHOWN_FIELDS = 12       # and a header to this many fields
+
+
+def _shown(text: str) -> str:
+    return text if len(text) <= _SHOWN_CHARS else text[:_SHOWN_CHARS] + f"... ({len(text)} chars)"
 
 
 def read_csv_columns(path: str | os.PathLike, columns: Sequence[str]) -> dict[str, np.ndarray]:
@@ -49,7 +55,8 @@ def read_csv_columns(path: str | os.PathLike, columns: Sequence[str]) -> dict[st
     if missing:
         raise FitError(
             f"{name}:{header_line_no}: header lacks column(s) {', '.join(missing)} "
-            f"(found: {', '.join(header) or 'nothing'})"
+            f"(found: {', '.join(_shown(h) for h in header[:_SHOWN_FIELDS]) or 'nothing'}"
+            f"{f' and {len(header) - _SHOWN_FIELDS} more' if len(header) > _SHOWN_FIELDS else ''})"
         )
     index = {c: header.index(c) for c in columns}
     values: dict[str, list[float]] = {c: [] for c in columns}
@@ -65,10 +72,10 @@ def read_csv_columns(path: str | os.PathLike, columns: Sequence[str]) -> dict[st
                 number = float(field)
             except ValueError:
                 raise FitError(
-                    f"{name}:{line_no}: {column} is not a number: {field!r}"
+                    f"{name}:{line_no}: {column} is not a number: {_shown(field)!r}"
                 ) from None
             if not math.isfinite(number):
-                raise FitError(f"{name}:{line_no}: {column} is {field!r}, not a finite number")
+                raise FitError(f"{name}:{line_no}: {column} is {_shown(field)!r}, not a finite number")
             values[column].append(number)
     if not values[columns[0]]:
         raise FitError(f"{name}: no data rows after the header")
