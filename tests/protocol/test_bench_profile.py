@@ -12,7 +12,7 @@ from tracer.bench_profile import (BenchProfileError, load_bench_profile, redact_
                                   registered_drivers)
 from tracer.plan import Limits
 
-from conftest import DRIVER_NAMES, ROOT, bench_profile_doc_example
+from protocol_helpers import DRIVER_NAMES, ROOT, bench_profile_doc_example
 
 
 def test_the_documented_example_loads(bench):
@@ -116,7 +116,7 @@ def test_bad_files(text, needle):
 
 def test_a_bad_bench_file_given_to_the_protocol_loader(tmp_path):
     from tracer.protocol import load_protocol
-    from conftest import MINIMAL
+    from protocol_helpers import MINIMAL
     bad = tmp_path / "bench.yaml"
     bad.write_text("bench: {}\n")
     with pytest.raises(BenchProfileError):

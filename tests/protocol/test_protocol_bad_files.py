@@ -9,7 +9,7 @@ import yaml
 
 from tracer.protocol import MAX_FILE_BYTES, ProtocolError, load_protocol
 
-from conftest import MINIMAL
+from protocol_helpers import MINIMAL
 
 
 @pytest.fixture(autouse=True, params=["libyaml", "pure-python"])

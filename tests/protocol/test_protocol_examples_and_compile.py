@@ -11,7 +11,7 @@ from tracer import plan as P
 from tracer.protocol import (ProtocolError, compile_plan, dump_protocol, load_protocol,
                              protocol_to_dict, summarize)
 
-from conftest import MINIMAL, PROTOCOLS
+from protocol_helpers import MINIMAL, PROTOCOLS
 
 EXPECTED = {"dark-then-light.yaml", "hysteresis-forward-reverse.yaml", "six-pixel-substrate.yaml",
             "mpp-tracking.yaml", "mini-module-36.yaml"}
@@ -221,7 +221,7 @@ def test_the_readme_full_example_is_valid_and_names_every_key(bench):
     from tracer.protocol.model import STEP_KINDS
     from tracer.protocol.schema import (CHECK_FIELDS, LIMIT_FIELDS, REFERENCE_FIELDS,
                                         SAMPLE_FIELDS, TOP_KEYS, TRANSLATION_FIELDS)
-    from conftest import ROOT
+    from protocol_helpers import ROOT
     text = (ROOT / "protocols" / "README.md").read_text(encoding="utf-8")
     block = re.search(r"## A full annotated example.*?```yaml\n(.*?)```", text, re.S).group(1)
     compile_plan(load_protocol(block, bench=bench), bench=bench)

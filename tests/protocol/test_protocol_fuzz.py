@@ -15,7 +15,7 @@ from hypothesis import strategies as st
 
 from tracer.protocol import ProtocolError, compile_plan, dump_protocol, load_protocol
 
-from conftest import PROTOCOLS
+from protocol_helpers import PROTOCOLS
 
 EXAMPLES = [p.read_text(encoding="utf-8") for p in PROTOCOLS]
 _LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)

@@ -5,7 +5,7 @@ import pytest
 
 from tracer.protocol import ProtocolError, load_protocol
 
-from conftest import MINIMAL
+from protocol_helpers import MINIMAL
 
 MANY_PROBLEMS = """\
 name: many problems
