@@ -514,8 +514,8 @@ class Forwarder:
         if self._thread is not None:
             self._thread.join(timeout_s)
         report = None
-        if drain and (self._thread is None or not self._thread.is_alive()):
-            report = self.forward_now()
+        if drain and self._thread is not None and not self._thread.is_alive():
+            report = self.forward_now()     # (a forwarder never started sends nothing)
         with self._pass_lock:
             _close_quietly(self._shared)
             self._shared = None
