@@ -17,6 +17,7 @@ import numpy as np
 from tracer.fit.errors import FitError
 
 REQUIRED_COLUMNS = ("voltage_v", "current_a")
+MAX_FILE_BYTES = 64 << 20   # 64 MiB: ~400,000 exported points; a curve is far smaller
 _SHOWN_CHARS = 40        # a field quoted in a message is cut to this length
 _SHOWN_FIELDS = 12       # and a header to this many fields
 
@@ -29,13 +30,17 @@ def read_csv_columns(path: str | os.PathLike, columns: Sequence[str]) -> dict[st
     """Read the named numeric columns of a CSV file into float arrays.
 
     Raises :class:`FitError` with a one-line message naming the file (and the line) for a
-    missing or unreadable file, a missing header or column, a field that is not a
+    missing or unreadable file, one larger than :data:`MAX_FILE_BYTES`, a missing header or column, a field that is not a
     number, a NaN or infinite value, or a file without data rows.
     """
     name = os.fspath(path)
     try:
-        with open(name, newline="", encoding="utf-8-sig") as handle:
-            text_lines = handle.read().splitlines()
+        with open(name, "rb") as handle:
+            raw = handle.read(MAX_FILE_BYTES + 1)      # bounded: /dev/zero, a FIFO, a huge file
+        if len(raw) > MAX_FILE_BYTES:
+            raise FitError(f"{name}: larger than {MAX_FILE_BYTES} bytes, too large for an I-V "
+                           f"curve")
+        text_lines = raw.decode("utf-8-sig").splitlines()
     except FileNotFoundError:
         raise FitError(f"{name}: no such file") from None
     except IsADirectoryError:
