@@ -40,6 +40,7 @@ _ERROR_QUEUE_READS = 40          # more than any queue depth (16 in the dialect)
 _DRAIN_READ_S = 0.1              # a drain read waits this long for stray bytes
 _RESYNC_LINES = 64               # stray lines tolerated before the identity comes back
 _READ_SLICE_S = 0.25             # a reply is awaited in slices this long (closed link noticed)
+MAX_BLOCK_BYTES = 16 << 20       # largest binary block read (a full 10,000-point list: 240 kB)
 
 ConnectHook = Callable[["ScpiSession"], None]
 
@@ -164,6 +165,10 @@ class ScpiSession:
             if not length_text.isdigit():
                 self._garbled(command, start + length_text, "block length is not decimal digits")
             length = int(length_text)
+            if length > MAX_BLOCK_BYTES:
+                self._garbled(command, start + length_text,
+                              f"block of {length} bytes announced; at most {MAX_BLOCK_BYTES} "
+                              f"are accepted")
             payload = self._read_bytes(command, length, timeout_s) if length else b""
             tail = self._decode(command, self._read_raw(command, timeout_s))
             self._state = "ready"
