@@ -70,60 +70,88 @@ def _supports(p: int, required: tuple[int, ...], diodes: tuple[int, ...]):
 def _solve_spd(m: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Solve a batch of small symmetric positive-definite systems m x = b.
 
-    Gaussian elimination without pivoting (safe for SPD matrices), vectorised over the
-    batch: for p <= 5 this is far cheaper than one LAPACK call per matrix.
+    ``m`` (p, p, B), ``b`` (p, B), the batch last (contiguous), so that every step is one
+    pass over B values; returns x (p, B). Gaussian elimination without pivoting (safe
+    for SPD matrices), vectorised over the batch: for p <= 5 this is far cheaper than
+    one LAPACK call per matrix.
     """
-    a = np.array(m, dtype=float)
+    a = np.array(m, dtype=float)          # copies
     x = np.array(b, dtype=float)
-    p = x.shape[1]
+    p = x.shape[0]
     for k in range(p):
-        pivot = a[:, k, k]
+        pivot = a[k, k]
         pivot = np.where(pivot > 0, pivot, np.inf)  # a null pivot gives a zero unknown
         for i in range(k + 1, p):
-            f = a[:, i, k] / pivot
-            a[:, i, k:] -= f[:, None] * a[:, k, k:]
-            x[:, i] -= f * x[:, k]
-        a[:, k, k] = pivot
+            f = a[i, k] / pivot
+            a[i, k:] -= f * a[k, k:]
+            x[i] -= f * x[k]
+        a[k, k] = pivot
     for k in range(p - 1, -1, -1):
-        x[:, k] = (x[:, k] - np.einsum("bj,bj->b", a[:, k, k + 1:], x[:, k + 1:])) / a[:, k, k]
+        acc = x[k].copy()
+        for j in range(k + 1, p):
+            acc -= a[k, j] * x[j]
+        x[k] = acc / a[k, k]
     return x
+
+
+def _quadratic(m: np.ndarray, c: np.ndarray) -> np.ndarray:
+    """c.M.c for batch-last ``m`` (p, p, B) and ``c`` (p, B)."""
+    p = c.shape[0]
+    out = np.zeros(c.shape[1])
+    for i in range(p):
+        row = m[i, 0] * c[0]
+        for j in range(1, p):
+            row += m[i, j] * c[j]
+        out += c[i] * row
+    return out
 
 
 def _batched_nnls(m: np.ndarray, b: np.ndarray, yy: np.ndarray, supports):
     """Minimise yy - 2 c.b + c.M.c over c >= 0 for a batch of small systems.
 
-    ``m`` (B, p, p) symmetric positive semi-definite, ``b`` (B, p), ``yy`` (B,). Returns
-    (c (B, p), ssr (B,)). The unconstrained solution where it is feasible; otherwise
-    each support set in ``supports`` is solved and the best feasible one kept. With all
-    proper subsets this is the exact nonnegative solution; the reduced problem leaves
-    out supports that drop the photocurrent of a light curve or every diode, which
-    describe no I-V curve (such a trial then scores as "no fit").
+    Batch last: ``m`` (p, p, B) symmetric positive semi-definite, ``b`` (p, B), ``yy``
+    (B,). Returns (c (p, B), ssr (B,)). The unconstrained solution where it is
+    feasible; otherwise each support set in ``supports`` is solved and the best
+    feasible one kept. With all proper subsets this is the exact nonnegative solution;
+    the reduced problem leaves out supports that drop the photocurrent of a light curve
+    or every diode, which describe no I-V curve (such a trial then scores as "no fit").
     """
-    batch, p = b.shape
-    eye = np.eye(p)
-    ridge = _RIDGE * np.trace(m, axis1=1, axis2=2)[:, None, None] * eye
-    c = _solve_spd(m + ridge, b)
-    ssr = yy - 2.0 * np.einsum("bi,bi->b", c, b) + np.einsum("bi,bij,bj->b", c, m, c)
-    ssr = np.array(ssr, dtype=float)
-    todo = np.flatnonzero(~(np.all(c >= 0.0, axis=1) & np.isfinite(ssr)))
+    p, batch = b.shape
+    ridge = _RIDGE * np.einsum("iib->b", m)
+    mr = np.array(m)
+    for k in range(p):
+        mr[k, k] += ridge
+    c = _solve_spd(mr, b)
+    ssr = yy - 2.0 * np.sum(c * b, axis=0) + _quadratic(m, c)
+    todo = np.flatnonzero(~(np.all(c >= 0.0, axis=0) & np.isfinite(ssr)))
     if todo.size == 0:
         return c, ssr
-    mt, bt, rt, yt = m[todo], b[todo], ridge[todo], yy[todo]
-    best_c = np.zeros((todo.size, p))
-    best_ssr = np.array(yt, dtype=float)  # empty support
-    for support in supports:
-        mask = np.zeros(p, dtype=bool)
-        mask[list(support)] = True
-        outer = mask[:, None] & mask[None, :]
-        ms = np.where(outer, mt + rt, eye)
-        bs = np.where(mask, bt, 0.0)
-        cs = np.where(mask, _solve_spd(ms, bs), 0.0)
-        ss = yt - 2.0 * np.einsum("bi,bi->b", cs, bt) + np.einsum("bi,bij,bj->b", cs, mt, cs)
-        ok = np.all(cs[:, mask] >= 0.0, axis=1) & np.isfinite(ss) & (ss < best_ssr)
-        best_c[ok] = cs[ok]
-        best_ssr[ok] = ss[ok]
-    c[todo] = best_c
-    ssr[todo] = best_ssr
+    mt, mrt, bt, yt = m[:, :, todo], mr[:, :, todo], b[:, todo], yy[todo]
+    n_t = todo.size
+    # every support's sub-system; the supports of one size are solved in one batch
+    ssr_s = np.empty((len(supports), n_t))
+    c_s = np.zeros((len(supports), p, n_t))
+    for size in sorted({len(sp) for sp in supports}):
+        rows = [k for k, sp in enumerate(supports) if len(sp) == size]
+        idx = np.array([supports[k] for k in rows]).T                        # (k, S)
+        n_s = len(rows)
+        # (k, k, S*T) and (k, S*T): support-major along the batch axis
+        ms = mrt[idx[:, None, :], idx[None, :, :]].reshape(size, size, n_s * n_t)
+        mo = mt[idx[:, None, :], idx[None, :, :]].reshape(size, size, n_s * n_t)
+        bs = bt[idx].reshape(size, n_s * n_t)
+        cs = _solve_spd(ms, bs)                                              # (k, S*T)
+        ss = np.tile(yt, n_s) - 2.0 * np.sum(cs * bs, axis=0) + _quadratic(mo, cs)
+        feasible = np.all(cs >= 0.0, axis=0) & np.isfinite(ss)
+        ssr_s[rows] = np.where(feasible, ss, np.inf).reshape(n_s, n_t)
+        cs = cs.reshape(size, n_s, n_t)
+        for r, k in enumerate(rows):
+            c_s[k, idx[:, r]] = cs[:, r]
+    # the best feasible support, the empty one (ssr = yy) first: ties keep the earlier
+    candidates = np.concatenate([yt[None], ssr_s], axis=0)
+    pick = np.argmin(candidates, axis=0)                                     # (T,)
+    columns = np.arange(n_t)
+    ssr[todo] = candidates[pick, columns]
+    c[:, todo] = np.where(pick > 0, c_s[np.maximum(pick - 1, 0), :, columns].T, 0.0)
     return c, ssr
 
 
@@ -142,37 +170,39 @@ class _Reduced:
                                   tuple(range(off, off + n_diodes)))
 
     def _finish(self, m, b, yy, log_scale, vd_scale):
-        yy = np.broadcast_to(yy, (b.shape[0],))
+        yy = np.broadcast_to(yy, (b.shape[1],))
         coef, ssr = _batched_nnls(m, b, yy, self.supports)
         off = 0 if self.dark else 1
+        diodes = coef[off:off + self.n_diodes].T
         return {
-            "iph": np.zeros(ssr.size) if self.dark else coef[:, 0],
-            "i0": coef[:, off:off + self.n_diodes] * np.exp(-log_scale),
-            "g": coef[:, -1] / vd_scale,
+            "iph": np.zeros(ssr.size) if self.dark else coef[0],
+            "i0": diodes * np.exp(-log_scale),
+            "g": coef[-1] / vd_scale,
             "ssr": ssr,
             # each diode's current at the trial's largest |Vd| [A]
-            "diode_peak": np.abs(coef[:, off:off + self.n_diodes]),
+            "diode_peak": np.abs(diodes),
         }
 
     def _assemble(self, batch, see, sed, s1e, be, sdd, s1d, bd, s11, b1):
-        """Normal equations of the columns [1], -e_1..-e_m, -vdn from their moments."""
+        """Normal equations of the columns [1], -e_1..-e_m, -vdn from their moments,
+        batch last: m (p, p, B), b (p, B)."""
         m_d = self.n_diodes
         off = 0 if self.dark else 1
-        m = np.empty((batch, self.p, self.p))
-        b = np.empty((batch, self.p))
-        m[:, off:off + m_d, off:off + m_d] = see
-        m[:, off:off + m_d, -1] = sed
-        m[:, -1, off:off + m_d] = sed
-        m[:, -1, -1] = sdd
-        b[:, off:off + m_d] = -be
-        b[:, -1] = -bd
+        m = np.empty((self.p, self.p, batch))
+        b = np.empty((self.p, batch))
+        m[off:off + m_d, off:off + m_d] = np.moveaxis(see, 0, -1)
+        m[off:off + m_d, -1] = sed.T
+        m[-1, off:off + m_d] = sed.T
+        m[-1, -1] = sdd
+        b[off:off + m_d] = -be.T
+        b[-1] = -bd
         if not self.dark:
-            m[:, 0, 0] = s11
-            m[:, 0, 1:1 + m_d] = -s1e
-            m[:, 1:1 + m_d, 0] = -s1e
-            m[:, 0, -1] = -s1d
-            m[:, -1, 0] = -s1d
-            b[:, 0] = b1
+            m[0, 0] = s11
+            m[0, 1:1 + m_d] = -s1e.T
+            m[1:1 + m_d, 0] = -s1e.T
+            m[0, -1] = -s1d
+            m[-1, 0] = -s1d
+            b[0] = b1
         return m, b
 
     def solve(self, a, rs, sw=None):

@@ -37,30 +37,28 @@ class ProjectedProblem:
         self.beta = None
 
     def _columns(self, alpha):
+        """The columns A (N, p) of beta = (Iph, I0_k, G) at ``alpha``, and what their
+        derivatives need: Vd and exp(Vd/a_k) per diode."""
         m = self.m
         a, rs = alpha[:m], alpha[m]
         vd = self.v + self.ie * rs
-        cols, d_cols = [], []  # columns and their derivatives d/d(a_k), d/dRs
-        if not self.dark:
-            cols.append(np.ones_like(vd))
-            d_cols.append([np.zeros_like(vd)] * (m + 1))
+        off = 0 if self.dark else 1
+        a_mat = np.empty((vd.size, off + m + 1))
+        if off:
+            a_mat[:, 0] = 1.0
+        exps = []
         for k in range(m):
             x = np.minimum(vd / a[k], _EXP_CAP)
-            ex = np.exp(x)
-            cols.append(-np.expm1(x))
-            d = [np.zeros_like(vd)] * (m + 1)
-            d[k] = ex * vd / (a[k] * a[k])
-            d[m] = -ex * self.ie / a[k]
-            d_cols.append(d)
-        cols.append(-vd)
-        d = [np.zeros_like(vd)] * (m + 1)
-        d[m] = -self.ie
-        d_cols.append(d)
-        return np.array(cols).T, d_cols
+            exps.append(np.exp(x))
+            a_mat[:, off + k] = -np.expm1(x)
+        a_mat[:, -1] = -vd
+        return a_mat, vd, exps
 
     def solve(self, alpha):
         """(residual, Kaufman Jacobian d residual / d alpha, beta) at ``alpha``."""
-        a_mat, d_cols = self._columns(alpha)
+        m = self.m
+        a = alpha[:m]
+        a_mat, vd, exps = self._columns(alpha)
         aw = a_mat * self.w[:, None]
         norms = np.linalg.norm(aw, axis=0)
         norms = np.where(norms > 0, norms, 1.0)
@@ -69,13 +67,23 @@ class ProjectedProblem:
         beta = coef / norms
         r = aw @ beta - self.t
         active = coef > 0
-        jac = np.zeros((self.v.size, self.m + 1))
-        for j in range(self.m + 1):
-            col = np.zeros_like(self.v)
-            for c, d in enumerate(d_cols):
-                if beta[c] != 0.0:
-                    col = col + d[j] * beta[c]
-            jac[:, j] = col * self.w
+        # dA/dalpha beta, column by column: d/da_k touches diode k's column only; d/dRs
+        # every diode's column and the shunt's (the photocurrent column is constant)
+        off = 0 if self.dark else 1
+        jac = np.empty((self.v.size, m + 1))
+        d_rs = None
+        for k in range(m):
+            b_k = beta[off + k]
+            if b_k != 0.0:
+                jac[:, k] = (exps[k] * vd / (a[k] * a[k])) * b_k * self.w
+                term = (-exps[k] * self.ie / a[k]) * b_k
+                d_rs = term if d_rs is None else d_rs + term
+            else:
+                jac[:, k] = 0.0
+        if beta[-1] != 0.0:
+            term = -self.ie * beta[-1]
+            d_rs = term if d_rs is None else d_rs + term
+        jac[:, m] = 0.0 if d_rs is None else d_rs * self.w
         if active.any():
             q, _ = np.linalg.qr(scaled[:, active])
             jac = jac - q @ (q.T @ jac)
