@@ -8,7 +8,12 @@
 - :func:`default_logbook_path` — ``$TRACER_LOGBOOK``, else
   ``$XDG_DATA_HOME/tracer/logbook.sqlite``, else ``~/.local/share/tracer/logbook.sqlite``.
 
-Stdlib only (plus ``tracer.events`` and ``tracer.conventions``).
+A ``postgresql://`` URL in place of a path opens the same logbook in a PostgreSQL database
+shared by a lab's benches (:mod:`tracer.logbook.backend`); :mod:`tracer.logbook.forward`
+copies a bench's ended runs from its local file to such a store (store-and-forward).
+
+Stdlib only (plus ``tracer.events`` and ``tracer.conventions``; psycopg for a PostgreSQL
+store, imported only when one is opened).
 """
 from tracer.logbook.export import (
     CSV_COLUMNS, ExportError, ExportResult, SweepCsv, export_run, read_run_json, read_sweep_csv,
