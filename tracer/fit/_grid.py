@@ -15,7 +15,9 @@ finds the basins; each competitive local minimum is
 then refined by a few zoomed grids around it (weights from the current best trial).
 For two diodes, trials where a diode carries no current are set aside (they form a
 flat floor of single-diode fits) and the customary n1 = 1, n2 = 2 start is always
-added. The refined points start the polish in :mod:`tracer.fit.extraction`.
+added. A long curve is screened on SCREEN_POINTS of its points, spread evenly over it;
+the score of each refined start is then taken over every point. The refined points
+start the polish in :mod:`tracer.fit.extraction`, which works on every point.
 """
 from __future__ import annotations
 
@@ -41,6 +43,11 @@ DEGENERATE_FRACTION = 1e-6
 #: The customary double-diode idealities, always tried as a start.
 STANDARD_IDEALITIES = (1.0, 2.0)
 _RIDGE = 1e-13
+#: Points the grids work on: a longer curve is screened on this many, spread evenly over
+#: it (:func:`screen_subset`); the score that ranks each refined start is computed on
+#: every point. The grids only propose starting points, which the polish then takes to
+#: the optimum over all points.
+SCREEN_POINTS = 200
 #: Cap on exponents (see tracer.fit._layout).
 EXP_CAP = 300.0
 
@@ -391,6 +398,21 @@ def _refine(red: _Reduced, a0, rs0, log_step, rs_step, start):
     return best
 
 
+def screen_subset(voltage_v: np.ndarray, points: int | None):
+    """Indices of ``points`` points spread evenly (by rank in voltage) over the curve,
+    or None when the curve has no more points than that.
+
+    Every k-th point in voltage order keeps the sweep's own point density (denser near
+    Voc where the sweep was planned so) and both ends of the curve.
+    """
+    n = voltage_v.size
+    if points is None or n <= points:
+        return None
+    order = np.argsort(voltage_v, kind="stable")
+    ranks = np.unique(np.round(np.linspace(0.0, n - 1.0, points)).astype(int))
+    return np.sort(order[ranks])
+
+
 def grid_search(voltage_v, current_a, weights, ns_vt_v, *, n_diodes, dark, rs_max_ohm,
                 keep=3, competitive_ratio=10.0):
     """Starting points for the polish, best first (list of :class:`LinearSolution`).
@@ -400,8 +422,12 @@ def grid_search(voltage_v, current_a, weights, ns_vt_v, *, n_diodes, dark, rs_ma
     ``keep`` coarse-grid local minima are refined, and only those whose coarse score is
     within ``competitive_ratio`` of the best one.
     """
-    red = _Reduced(np.asarray(voltage_v, dtype=float), np.asarray(current_a, dtype=float),
-                   np.asarray(weights, dtype=float), n_diodes, dark)
+    v = np.asarray(voltage_v, dtype=float)
+    y = np.asarray(current_a, dtype=float)
+    w = np.asarray(weights, dtype=float)
+    full = _Reduced(v, y, w, n_diodes, dark)
+    sub = screen_subset(v, SCREEN_POINTS)
+    red = full if sub is None else _Reduced(v[sub], y[sub], w[sub], n_diodes, dark)
     a, rs, sol, minima, log_step, rs_step, standard = _coarse_grid(red, ns_vt_v, rs_max_ohm)
     if minima.size == 0:
         return []
@@ -417,7 +443,7 @@ def grid_search(voltage_v, current_a, weights, ns_vt_v, *, n_diodes, dark, rs_ma
             a_k, rs_k, s = _refine(red, a[k], rs[k], log_step, rs_step[k], start)
         else:
             a_k, rs_k, s = a[k], float(rs[k]), start
-        score = red.score(a_k, rs_k, s["iph"], s["i0"], s["g"])
+        score = full.score(a_k, rs_k, s["iph"], s["i0"], s["g"])
         if any(np.allclose(a_k, o.n_ns_vt_v, rtol=1e-3)
                and abs(rs_k - o.series_resistance_ohm) <= 1e-3 * max(rs_k, 1e-12)
                for o in out):
