@@ -17,8 +17,8 @@ from typing import Sequence
 
 import numpy as np
 import pyqtgraph as pg
-from PyQt6.QtCore import Qt
-from PyQt6.QtGui import QColor, QFont, QPen
+from PyQt6.QtCore import QPointF, QRectF, Qt
+from PyQt6.QtGui import QColor, QFont, QPainter, QPen, QPixmap
 from PyQt6.QtWidgets import (QGraphicsItem, QLabel, QSplitter, QTabWidget, QVBoxLayout,
                              QWidget)
 
@@ -125,6 +125,181 @@ def _pen(colour: str, style: str = "SolidLine", width: float = 2.0, alpha: int =
     return pen
 
 
+class _DataItem(pg.PlotDataItem):
+    """A PlotDataItem that skips pyqtgraph's refresh after a view-range change when the
+    refresh would not change the picture.
+
+    pyqtgraph hands every item its data anew (markers rebuilt) on each range change, to
+    choose the automatic downsampling again and to clip values far outside the view (its
+    dynamic range limit). With dozens of sweeps on a plot that made every range change a
+    heavy frame. Here the refresh runs only when the new range asks for another
+    downsampling factor than the one in use, or when the clipping applies to the old or the
+    new range (the same tests pyqtgraph makes; it clips only data spanning millions of
+    view heights)."""
+
+    _shown_for: tuple[QRectF, float] | None = None   # (view rect, view width px) shown for
+
+    def updateItems(self, styleUpdate: bool = True) -> None:  # noqa: N802, N803 - pyqtgraph
+        self._shown_for = self._view_state()
+        super().updateItems(styleUpdate)
+
+    def viewRangeChanged(self, vb=None, ranges=None, changed=None) -> None:  # noqa: N802
+        old, new = self._shown_for, self._view_state()
+        if (old is not None and new is not None and not self.opts["clipToView"]
+                and self._downsampling_for(*old) == self._downsampling_for(*new)
+                and not self._clips(old[0]) and not self._clips(new[0])):
+            return
+        super().viewRangeChanged(vb, ranges, changed)
+
+    def _view_state(self) -> tuple[QRectF, float] | None:
+        vb = self.getViewBox()
+        return None if vb is None else (QRectF(vb.viewRect()), float(vb.width()))
+
+    def _downsampling_for(self, view: QRectF, width_px: float) -> int | None:
+        """The factor pyqtgraph's automatic downsampling picks for this view."""
+        if not self.opts["autoDownsample"]:
+            return None
+        mapped = self._datasetMapped
+        if mapped is None:
+            return -1                   # not drawn yet: let pyqtgraph decide
+        x = mapped.x if mapped.xAllFinite else mapped.x[np.isfinite(mapped.x)]
+        ds = 1
+        if len(x) > 1 and width_px != 0.0:
+            dx = float(x[-1] - x[0]) / (len(x) - 1)
+            if dx != 0.0:
+                f = max(1.0, abs(view.width() / dx / (width_px * self.opts["autoDownsampleFactor"])))
+                if np.isfinite(f):
+                    ds = int(f)
+        return ds
+
+    def _clips(self, view: QRectF) -> bool:
+        """Whether pyqtgraph's dynamic range limit clips the data in this view."""
+        limit = self.opts["dynamicRangeLimit"]
+        mapped = self._datasetMapped
+        if limit is None or mapped is None:
+            return False
+        data = mapped.dataRect()
+        if data is None:
+            return False
+        height = view.height()
+        return (height > 0 and not data.bottom() < view.top() and not data.top() > view.bottom()
+                and data.height() > 2 * self.opts["dynamicRangeHyst"] * limit * height)
+
+
+class FrozenLayer(pg.GraphicsObject):
+    """Plot items that no longer change, painted once into a pixmap the size of the plot's
+    viewport and from then on only copied to the screen.
+
+    A frame then pays for one copy instead of every finished sweep's line and markers. The
+    items stay in the plot — they keep their data, style and legend entry — but fully
+    transparent, so Qt skips them; the layer calls their own ``paint``, so a frozen sweep
+    looks exactly as it did live. The pixmap is redrawn whole when the view's transform or
+    size changes, or after :meth:`invalidate` (an item restyled, hidden or removed); an item
+    added on top is drawn onto it as it is (``renders`` counts the whole redraws).
+    """
+
+    def __init__(self, z: float):
+        super().__init__()
+        self.setZValue(z)
+        self.items: list[QGraphicsItem] = []
+        self._pixmap: QPixmap | None = None
+        self._key: tuple | None = None
+        self._drawn = 0                 # items[:_drawn] are in the pixmap
+        self._stale = True
+        self.renders = 0
+
+    # ------------------------------------------------------------------ contents
+    def add(self, item: QGraphicsItem) -> None:
+        if item in self.items:
+            return
+        item.setOpacity(0.0)            # Qt no longer paints it; this layer does
+        item.visibleChanged.connect(self.invalidate)      # hidden from the legend
+        self.items.append(item)
+        self.update()
+
+    def remove(self, item: QGraphicsItem, *, restore: bool = True) -> None:
+        if item not in self.items:
+            return
+        self.items.remove(item)
+        item.visibleChanged.disconnect(self.invalidate)
+        if restore:
+            item.setOpacity(1.0)
+        self.invalidate()
+
+    def clear(self) -> None:
+        for item in self.items:
+            try:
+                item.visibleChanged.disconnect(self.invalidate)
+            except (TypeError, RuntimeError):
+                pass
+        self.items = []
+        self._pixmap = None
+        self.invalidate()
+
+    def invalidate(self, *args) -> None:
+        self._stale = True
+        self.update()
+
+    # ------------------------------------------------------------------ painting
+    def viewTransformChanged(self) -> None:  # noqa: N802 - pyqtgraph hook
+        super().viewTransformChanged()
+        self.prepareGeometryChange()
+
+    def boundingRect(self) -> QRectF:
+        rect = self.viewRect()            # the whole view, so that clearing repaints it
+        return QRectF() if rect is None else rect
+
+    def paint(self, painter, option, widget=None) -> None:
+        if not self.items:
+            return
+        if widget is None or self._exportOpts is not False:     # an export: draw directly
+            self._draw(painter, self.items, option, widget)
+            return
+        ratio = widget.devicePixelRatioF()
+        t = painter.transform()
+        key = (t.m11(), t.m12(), t.m21(), t.m22(), t.dx(), t.dy(), widget.width(),
+               widget.height(), ratio)
+        if self._stale or key != self._key or self._pixmap is None:
+            size = (max(1, round(widget.width() * ratio)), max(1, round(widget.height() * ratio)))
+            if self._pixmap is None or (self._pixmap.width(), self._pixmap.height()) != size:
+                self._pixmap = QPixmap(*size)
+                self._pixmap.setDevicePixelRatio(ratio)
+            self._pixmap.fill(Qt.GlobalColor.transparent)
+            self._key, self._stale, self._drawn = key, False, 0
+            self.renders += 1
+        if self._drawn < len(self.items):
+            # the pixmap's pixels are the viewport's: the same transform draws into it
+            canvas = QPainter(self._pixmap)
+            try:
+                canvas.setTransform(t)
+                self._draw(canvas, self.items[self._drawn:], option, widget)
+            finally:
+                canvas.end()
+            self._drawn = len(self.items)
+        painter.save()
+        painter.resetTransform()
+        painter.drawPixmap(QPointF(0.0, 0.0), self._pixmap)
+        painter.restore()
+
+    def _draw(self, painter, items, option, widget) -> None:
+        base = painter.transform()
+        for item in items:
+            if not item.isVisible():
+                continue
+            parts = ((item.curve, item.scatter) if isinstance(item, pg.PlotDataItem)
+                     else (item,))
+            for part in parts:
+                if part is not item and not part.isVisibleTo(item):
+                    continue
+                relative, _ = part.itemTransform(self)
+                painter.save()
+                try:
+                    painter.setTransform(relative * base)
+                    part.paint(painter, option, widget)
+                finally:
+                    painter.restore()
+
+
 @dataclass(frozen=True)
 class OverlayCurve:
     """An earlier sweep from the logbook, laid over the live plots."""
@@ -141,6 +316,7 @@ class OverlayCurve:
 @dataclass
 class _Items:
     current: pg.PlotDataItem
+    trace: SweepTrace
     power: pg.PlotDataItem | None = None
     fit: pg.PlotDataItem | None = None
     mpp: pg.ScatterPlotItem | None = None
@@ -148,6 +324,9 @@ class _Items:
     in_legend: bool = True
     colour: str = "#000000"
     style: str = "SolidLine"
+    frozen: bool = False            # finished: drawn by a layer, no longer live
+    old: bool = False               # beyond the newest LEGEND_SWEEPS: its final style
+    fit_frozen: bool = False
 
 
 class CurvePlot(TimedPlotWidget):
@@ -197,7 +376,7 @@ class CurvePlot(TimedPlotWidget):
         pi.getViewBox().sigRangeChangedManually.connect(self._user_moved_view)
         self.scene().sigMouseClicked.connect(self._clicked)
         self.running_sweep = False          # set by PlotArea while points arrive
-        self.budget_pending = False         # a sweep was added: budgets on a later frame
+        self.tidy_pending = False           # a sweep was added: layers, budgets later
         self.power_view: pg.ViewBox | None = None
         if with_power:
             self.power_view = pg.ViewBox()
@@ -231,6 +410,19 @@ class CurvePlot(TimedPlotWidget):
         self._fit_sample = pg.PlotDataItem(pen=_pen(palette.FIT_COLOUR, "SolidLine", 1.5))
         self.items: dict[str, _Items] = {}
         self.overlay_items: dict[str, pg.PlotDataItem] = {}
+        # Finished sweeps, fits and overlays are drawn by layers (see FrozenLayer), each
+        # just below the live items of its kind: overlays 5, sweeps 10, fits 20, stars 30.
+        vb = pi.getViewBox()
+        self._overlay_layer = FrozenLayer(4.5)
+        self._old_layer = FrozenLayer(9.0)
+        self._recent_layer = FrozenLayer(9.5)
+        self._fit_layer = FrozenLayer(19.5)
+        for layer in (self._overlay_layer, self._old_layer, self._recent_layer, self._fit_layer):
+            vb.addItem(layer, ignoreBounds=True)
+        self._power_layer: FrozenLayer | None = None
+        if self.power_view is not None:
+            self._power_layer = FrozenLayer(-1.0)
+            self.power_view.addItem(self._power_layer, ignoreBounds=True)
 
     # ------------------------------------------------------------------ layout
     def _user_moved_view(self, *args) -> None:
@@ -417,6 +609,8 @@ class CurvePlot(TimedPlotWidget):
     # ------------------------------------------------------------------ live sweeps
     def clear_sweeps(self) -> None:
         pi = self.getPlotItem()
+        for layer in self._sweep_layers():
+            layer.clear()
         for items in self.items.values():
             pi.removeItem(items.current)
             if items.in_legend:
@@ -428,6 +622,7 @@ class CurvePlot(TimedPlotWidget):
             if items.mpp is not None:
                 pi.removeItem(items.mpp)
         self.items.clear()
+        self.tidy_pending = False
         self._auto_view = True
         self._view = None
         if self._fit_in_legend:
@@ -437,6 +632,10 @@ class CurvePlot(TimedPlotWidget):
             self.legend.removeItem(self._power_sample)
             self._power_in_legend = False
         self._update_placeholder()
+
+    def _sweep_layers(self) -> list[FrozenLayer]:
+        layers = [self._old_layer, self._recent_layer, self._fit_layer]
+        return layers + ([self._power_layer] if self._power_layer is not None else [])
 
     def _update_placeholder(self) -> None:
         empty = not self.items and not self.overlay_items
@@ -450,24 +649,24 @@ class CurvePlot(TimedPlotWidget):
         colour = palette.sweep_colour(trace.order)
         style, symbol, _ = palette.direction_style(trace.direction)
         markers = (trace.started.points_planned or 0) <= MARKER_LIMIT
-        current = pg.PlotDataItem(
+        current = _DataItem(
             pen=_pen(colour, style, 2.0), symbol=symbol if markers else None, symbolSize=6,
             symbolBrush=pg.mkBrush(colour), symbolPen=None, connect="finite", name=trace.label())
         current.setZValue(10)
         self.getPlotItem().addItem(current)
         self.legend.addItem(current, trace.label())
         self._legend_tail()
-        items = _Items(current=current, markers=markers, colour=colour, style=style)
+        items = _Items(current=current, trace=trace, markers=markers, colour=colour, style=style)
         current.opts["_planned"] = int(trace.started.points_planned or 0)
         self.items[trace.uid] = items
-        # The rest (power curve, marker and legend budgets) waits for the next redraws, so
-        # that no single frame pays for everything a new sweep needs.
-        self.budget_pending = True
+        # The rest (power curve, layers, budgets) waits for the next redraws, so that no
+        # single frame pays for everything a new sweep needs.
+        self.tidy_pending = True
         self._update_placeholder()
         self.fit_view()
 
     def _add_power(self, items: _Items) -> None:
-        power = pg.PlotDataItem(pen=_pen(items.colour, "DotLine", 1.5, palette.POWER_ALPHA),
+        power = _DataItem(pen=_pen(items.colour, "DotLine", 1.5, palette.POWER_ALPHA),
                                 connect="finite")
         power.setDownsampling(auto=True, method="peak")
         self.power_view.addItem(power)
@@ -485,55 +684,98 @@ class CurvePlot(TimedPlotWidget):
                 self.legend.removeItem(sample)
                 self.legend.addItem(sample, name)
 
-    def keep_within_budgets(self) -> None:
-        """Many sweeps on one plot: the oldest lose their markers first (their line keeps
-        the direction's style), only the newest are named in the legend (the others are
-        drawn thin) and show power. One change per call (each restyles an item), so a
-        frame never pays for many; ``budget_pending`` stays set while more are due."""
-        self.budget_pending = False
+    def _layer_of(self, items: _Items) -> FrozenLayer:
+        return self._old_layer if items.old else self._recent_layer
+
+    def tidy(self) -> None:
+        """Housekeeping after a sweep was added, one kind of step per call, so that no
+        frame pays for many (``tidy_pending`` stays set while more are due):
+
+        1. finished sweeps, and fits, go into the layers (drawn once, then only copied);
+        2. sweeps beyond the newest LEGEND_SWEEPS take their final style — a thin line
+           without markers or power, out of the legend — and move to the old layer, which
+           only ever grows on top (so the many old sweeps are never redrawn as a sweep
+           ends; only the few recent ones are);
+        3. the newest sweeps keep their markers up to MARKER_BUDGET markers per plot;
+        4. only the newest POWER_SWEEPS show their power curve.
+        """
+        self.tidy_pending = False
         ordered = list(self.items.values())
         if not ordered:
             return
-        markers = sum(len(i.current.xData) if i.current.xData is not None and i.markers else 0
-                      for i in ordered[:-1])
-        newest = ordered[-1]
-        markers += newest.current.opts.get("_planned", 0) if newest.markers else 0
-        changes = []
-        if markers > MARKER_BUDGET:
-            changes += [("markers", i) for i in ordered[:-1] if i.markers][:1]
-        changes += [("legend", i) for i in ordered[:-LEGEND_SWEEPS] if i.in_legend][:1]
-        changes += [("power", i) for i in ordered[:-POWER_SWEEPS]
-                    if i.power is not None and i.power.isVisible()][:1]
-        if not changes:
+        done = [i for i in ordered if not i.frozen and i.trace.finished is not None]
+        fits = [i for i in ordered if not i.fit_frozen and i.fit is not None]
+        if done or fits:
+            for items in done:
+                items.frozen = True
+                self._layer_of(items).add(items.current)
+                if items.power is not None and self._power_layer is not None:
+                    self._power_layer.add(items.power)
+            for items in fits:
+                items.fit_frozen = True
+                self._fit_layer.add(items.fit)
+                if items.mpp is not None:
+                    self._fit_layer.add(items.mpp)
+            self.tidy_pending = True
             return
-        what, items = changes[0]
-        if what == "markers":
-            items.current.setSymbol(None)
-            items.markers = False
-        elif what == "legend":
-            self.legend.removeItem(items.current)
-            items.in_legend = False
-            # thin: a 1-pixel line is several times cheaper to paint than a wider one
-            items.current.setPen(_pen(items.colour, items.style, 1.0))
-        else:
-            items.power.setVisible(False)
-        self.budget_pending = len(changes) > 1 or what == "markers"
+        retire = [i for i in ordered[:-LEGEND_SWEEPS] if not i.old]
+        if retire:
+            for items in retire:
+                if items.in_legend:
+                    self.legend.removeItem(items.current)
+                    items.in_legend = False
+                items.current.setSymbol(None)
+                items.markers = False
+                # thin: old sweeps step back behind the newest ones
+                items.current.setPen(_pen(items.colour, items.style, 1.0))
+                if items.frozen:
+                    self._recent_layer.remove(items.current, restore=False)
+                    self._old_layer.add(items.current)
+                items.old = True
+            self.tidy_pending = True
+            return
+        stripped = False
+        count = 0
+        for items in reversed(ordered):
+            if not items.markers:
+                continue
+            x = items.current.xData
+            count += max(0 if x is None else len(x), 0 if items.frozen
+                         else items.current.opts.get("_planned", 0))
+            if count > MARKER_BUDGET and items is not ordered[-1]:
+                items.current.setSymbol(None)
+                items.markers = False
+                stripped = True
+                if items.frozen:
+                    self._layer_of(items).invalidate()
+        if stripped:
+            self.tidy_pending = True
+            return
+        for items in ordered[:-POWER_SWEEPS]:
+            if items.power is not None and items.power.isVisible():
+                items.power.setVisible(False)      # a frozen one: its layer hears it
 
     def update_sweep(self, trace: SweepTrace) -> None:
         items = self.items.get(trace.uid)
         if items is None:
             return
         x = trace.column("voltage_v")
+        if items.frozen and items.current.xData is not None and len(items.current.xData) == len(x):
+            return                       # nothing new (the sweep's end was announced)
         y = trace.column("abs_y" if self.log_y else "y")
         if items.markers and len(x) > MARKER_LIMIT:
             items.current.setSymbol(None)
             items.markers = False
         items.current.setData(x, y)
+        if items.frozen:
+            self._layer_of(items).invalidate()
         if items.power is None and self.power_view is not None and len(x) > 1:
             self._add_power(items)
             return                       # its data next frame: one new item per frame
         if items.power is not None:
             items.power.setData(x, trace.column("p"))
+            if items.frozen:
+                self._power_layer.invalidate()
 
     def show_fit(self, trace: SweepTrace, current_scale: float) -> None:
         items = self.items.get(trace.uid)
@@ -544,7 +786,7 @@ class CurvePlot(TimedPlotWidget):
             return
         pi = self.getPlotItem()
         if items.fit is None:
-            items.fit = pg.PlotDataItem(pen=_pen(palette.FIT_COLOUR, "SolidLine", 1.5),
+            items.fit = _DataItem(pen=_pen(palette.FIT_COLOUR, "SolidLine", 1.5),
                                         connect="finite")
             items.fit.setZValue(20)
             pi.addItem(items.fit)
@@ -560,12 +802,19 @@ class CurvePlot(TimedPlotWidget):
                                                brush=pg.mkBrush(palette.OKABE_ITO["yellow"]))
                 items.mpp.setZValue(30)
                 pi.addItem(items.mpp)
+                if items.fit_frozen:
+                    self._fit_layer.add(items.mpp)
             items.mpp.setData([float(vmp)], [float(imp) * current_scale])
+        if items.fit_frozen:
+            self._fit_layer.invalidate()      # a new analysis of a sweep already drawn
+        else:
+            self.tidy_pending = True
 
     # ------------------------------------------------------------------ earlier sweeps
     def set_overlays(self, curves: Sequence[OverlayCurve], density: bool) -> list[str]:
         """Replace the overlays; returns the keys that could not be shown in these units."""
         pi = self.getPlotItem()
+        self._overlay_layer.clear()
         for item in self.overlay_items.values():
             pi.removeItem(item)
             self.legend.removeItem(item)
@@ -581,13 +830,14 @@ class CurvePlot(TimedPlotWidget):
                 y = np.abs(y)
                 y[y == 0.0] = np.nan
             style, _, _ = palette.direction_style(c.direction)
-            item = pg.PlotDataItem(c.voltage_v, y, connect="finite",
+            item = _DataItem(c.voltage_v, y, connect="finite",
                                    pen=_pen(palette.overlay_colour(k), "DotLine" if style ==
                                             "SolidLine" else "DashDotLine", 1.5, 200))
             item.setZValue(5)
             pi.addItem(item)
             self.legend.addItem(item, c.label)
             self.overlay_items[c.key] = item
+            self._overlay_layer.add(item)         # they never change: drawn once
         self._update_placeholder()
         self.fit_view()
         return skipped
@@ -623,7 +873,7 @@ class TrackingPlot(CurvePlot):
             self.legend.addItem(self._power_sample, "voltage (right axis)")
 
     def _add_power(self, items: _Items) -> None:
-        volts = pg.PlotDataItem(pen=_pen(items.colour, "DashLine", 1.0, palette.POWER_ALPHA),
+        volts = _DataItem(pen=_pen(items.colour, "DashLine", 1.0, palette.POWER_ALPHA),
                                 connect="finite")
         volts.setDownsampling(auto=True, method="peak")
         self.power_view.addItem(volts)
@@ -636,15 +886,20 @@ class TrackingPlot(CurvePlot):
         items = self.items.get(trace.uid)
         if items is None:
             return
+        t = trace.column("t_s")
+        if items.frozen and items.current.xData is not None and len(items.current.xData) == len(t):
+            return
         if items.markers and len(trace.buffer) > MARKER_LIMIT:
             items.current.setSymbol(None)
             items.markers = False
-        t = trace.column("t_s")
         items.current.setData(t, trace.column("p"))
         if items.power is None and len(t) > 1:
             self._add_power(items)
         if items.power is not None:
             items.power.setData(t, trace.column("voltage_v"))
+        if items.frozen:
+            self._layer_of(items).invalidate()
+            self._power_layer.invalidate()
         self.fit_view()
 
 
@@ -709,8 +964,8 @@ class PlotArea(QWidget):
             self.plot_for(trace).update_sweep(trace)
         if not changes.added:
             for p in self.plots():
-                if p.budget_pending:
-                    p.keep_within_budgets()
+                if p.tidy_pending:
+                    p.tidy()
                     break                   # one plot per frame
         for trace in changes.analysed:
             if trace.is_iv:
