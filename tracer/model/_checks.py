@@ -34,6 +34,10 @@ def check_range(name, value, *, low, high, low_open, high_open, unit):
         If any element is NaN or outside the interval. The message names the parameter,
         the first offending value and the allowed range.
     """
+    if type(value) is float or type(value) is np.float64:  # the common scalar case, fast
+        if ((value > low) if low_open else (value >= low)) and \
+                ((value < high) if high_open else (value <= high)):
+            return np.asarray(value, dtype=float)
     arr = np.asarray(value, dtype=float)
     ok_low = arr > low if low_open else arr >= low
     ok_high = arr < high if high_open else arr <= high

@@ -28,6 +28,7 @@ from dataclasses import dataclass, fields
 
 import numpy as np
 
+from tracer.model import _scalar
 from tracer.model._checks import scaled_exp_pair
 from tracer.model._lambert import sd_current, sd_voltage
 from tracer.model._newton import bracketed_newton
@@ -39,7 +40,10 @@ ATOL_PER_A = 1e-13
 
 @dataclass(frozen=True)
 class FlatNetwork:
-    """Flat, equal-length parameter arrays of a diode network (internal)."""
+    """Flat, equal-length parameter arrays of a diode network (internal).
+
+    A *uniform* network (:func:`make_uniform`) holds 0-d arrays instead: one parameter
+    set shared by every element, broadcast in the arithmetic rather than copied."""
 
     photocurrent_a: np.ndarray
     saturation_current_1_a: np.ndarray
@@ -51,7 +55,8 @@ class FlatNetwork:
 
     def take(self, index):
         """Sub-network of the elements ``index`` (a slice gives views)."""
-        if isinstance(index, slice) and index == slice(None):
+        if self.photocurrent_a.ndim == 0 or (isinstance(index, slice)
+                                              and index == slice(None)):
             return self
         return FlatNetwork(*(getattr(self, f.name)[index] for f in fields(self)))
 
@@ -65,7 +70,11 @@ class FlatNetwork:
         return ATOL_PER_A * np.minimum(self.n_ns_vt_1_v, a2)
 
     def has_second_diode(self) -> bool:
-        return bool(np.any(self.saturation_current_2_a > 0))
+        cached = self.__dict__.get("_has_second_diode")   # fields are fixed: compute once
+        if cached is None:
+            cached = bool(np.any(self.saturation_current_2_a > 0))
+            self.__dict__["_has_second_diode"] = cached
+        return cached
 
 
 def make_flat(shape, photocurrent_a, saturation_current_1_a, n_ns_vt_1_v,
@@ -77,6 +86,15 @@ def make_flat(shape, photocurrent_a, saturation_current_1_a, n_ns_vt_1_v,
                         saturation_current_2_a, n_ns_vt_2_v, series_resistance_ohm,
                         shunt_conductance_s)]
     return FlatNetwork(*arrays)
+
+
+def make_uniform(photocurrent_a, saturation_current_1_a, n_ns_vt_1_v, saturation_current_2_a,
+                 n_ns_vt_2_v, series_resistance_ohm, shunt_conductance_s) -> FlatNetwork:
+    """A uniform network: scalar parameters (0-d arrays) shared by every element."""
+    return FlatNetwork(*(np.asarray(p, dtype=float).reshape(())
+                         for p in (photocurrent_a, saturation_current_1_a, n_ns_vt_1_v,
+                                   saturation_current_2_a, n_ns_vt_2_v, series_resistance_ohm,
+                                   shunt_conductance_s)))
 
 
 def junction_state(vd, net: FlatNetwork, curvature=False):
@@ -143,6 +161,11 @@ def open_circuit_voltage(net: FlatNetwork):
     lower = np.zeros_like(upper)
     if not net.has_second_diode():  # single diode: explicit
         return np.clip(_single_diode_junction_bound(0.0, net), lower, upper)
+    if net.size == 1:  # one parameter set: the same iteration in plain floats
+        values = [float(getattr(net, f.name).reshape(-1)[0]) for f in fields(net)]
+        iph, i01, a1, i02, a2, _, g = values
+        return np.full(upper.shape, _scalar.open_circuit_voltage(
+            iph, i01, a1, i02, a2, g, float(net.voltage_scale_v().reshape(-1)[0])))
     start = _single_diode_junction_bound(0.0, net)
 
     def residual(x, idx):  # -I(Vd): increasing and convex
