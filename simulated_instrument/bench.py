@@ -55,6 +55,16 @@ class ScpiEndpoint:
             self.instrument.push_error(-363, "line longer than 1 MiB discarded")
 
     def handle(self, conn: Connection, line: bytes) -> None:
+        """Execute one message.  An unexpected exception anywhere in here (bringing the world
+        up to date, a fault firing) is queued as ``-300`` on this instrument and the message
+        gets no reply; the connection keeps being served."""
+        try:
+            self._handle(conn, line)
+        except Exception as exc:  # noqa: BLE001 - a fault of the simulator itself
+            with self.world.lock:
+                self.instrument.push_internal_error(exc)
+
+    def _handle(self, conn: Connection, line: bytes) -> None:
         w = self.world
         smu = self.role == "smu"
         with w.lock:

@@ -42,6 +42,7 @@ K_OVER_Q = constants.k / constants.e
 T_REF_K = 298.15
 G_REF_W_M2 = 1000.0
 _EXP_CAP = 700.0
+_FLOAT_MAX = 1.7976931348623157e308
 
 
 @dataclass(frozen=True)
@@ -139,11 +140,15 @@ def internal_current(c: OperatingCell, vd: float) -> float:
 
 def circuit(c: OperatingCell, vd: float, memory_v: float = 0.0) -> tuple[float, float, float, float]:
     """(v_cell, i_gen, dv_cell/dvd, di_gen/dvd) at junction voltage ``vd``."""
-    e1 = c.i01 * _exp(vd / c.a1)
-    e2 = c.i02 * _exp(vd / c.a2)
-    eb = c.ibd * _exp((c.vbd - vd) / c.sbd)
+    x1, x2, xb = vd / c.a1, vd / c.a2, (c.vbd - vd) / c.sbd
+    e1 = c.i01 * _exp(x1)
+    e2 = c.i02 * _exp(x2)
+    eb = c.ibd * _exp(xb)
     i_int = c.iph - (e1 - c.i01) - (e2 - c.i02) - vd * c.gsh + eb
-    di_int = -e1 / c.a1 - e2 / c.a2 - c.gsh - eb / c.sbd
+    # slopes of the capped exponentials: zero where the cap holds them constant, so that the
+    # reported slope always belongs to the function evaluated (Newton is never misled)
+    di_int = (-(e1 / c.a1 if x1 < _EXP_CAP else 0.0) - (e2 / c.a2 if x2 < _EXP_CAP else 0.0)
+              - c.gsh - (eb / c.sbd if xb < _EXP_CAP else 0.0))
     v_cell = vd - i_int * c.rs
     dv_cell = 1.0 - di_int * c.rs
     g_extra = c.g_mem + c.g_short
@@ -158,56 +163,114 @@ def cell_point(c: OperatingCell, vd: float, memory_v: float = 0.0) -> tuple[floa
     return v_cell, i_gen
 
 
-def solve_increasing(fn, target: float, guess: float, tolerance: float = 1e-15) -> float:
+def solve_increasing(fn, target: float, guess: float, tolerance: float = 1e-15,
+                     max_evaluations: int = 5000) -> float:
     """Root of ``fn(x)[0] = target`` for a strictly increasing ``fn`` returning (value, slope).
 
-    Safeguarded Newton on a bracket (the ``rtsafe`` scheme): every evaluation narrows the
-    bracket [lo, hi] by the sign of the residual.  While one side is still open, Newton
-    steps are stretched when they keep landing on the same side and limited in length (the
-    limit doubles at each use, so any root is reached);
-    once the bracket is closed, a Newton step that would leave it, or that does not at
-    least halve the previous step, is replaced by bisection.  Ends when the bracket or the
-    step is at the resolution of float64.
+    Safeguarded Newton that keeps a bracket [lo, hi] (the ``rtsafe`` scheme), built so that
+    it ends for any finite root and any finite guess:
+
+    * While the root is bracketed on one side only, a Newton step is taken when it is at most
+      half the previous step (Newton closing in); otherwise (Newton creeping along a flat or
+      capped stretch, or no usable slope) the step is at least twice the previous one and
+      twice the previous expansion, so any root in float64 is reached within about 1,100
+      evaluations.  A value that is not finite while stepping outwards counts as past the
+      root (the function is increasing and overflows only far out).
+    * Once bracketed, a Newton step that would leave the bracket or does not at least halve
+      the previous step is replaced by bisection.
+    * A Newton step below the tolerance is confirmed by one evaluation just across the
+      predicted root.  If the sign does not change there (a wrong slope), the next step
+      bisects or expands: convergence is judged by the bracket, never by the step size.
+
+    Ends when the bracket is no wider than ``tolerance * max(1, |x|)`` and returns the end
+    with the smaller residual.  A non-finite ``guess`` starts from 0.  Raises ``ValueError``
+    for a non-finite target and ``ArithmeticError`` only if ``fn`` does not reach the target
+    anywhere in float64 (not increasing, or bounded) or is undefined where it starts.
     """
+    if not math.isfinite(target):
+        raise ValueError(f"target {target!r} is not finite")
+    x = float(guess) if guess is not None and math.isfinite(guess) else 0.0
     lo, hi = -math.inf, math.inf
-    x = guess
-    max_step = 0.5
+    f_lo = f_hi = math.inf
+    evaluations = 0
+
+    def residual(at: float) -> tuple[float, float]:
+        nonlocal evaluations
+        evaluations += 1
+        value, slope = fn(at)
+        return value - target, slope
+
+    f, slope = residual(x)
+    if math.isnan(f) and x != 0.0:              # a guess out where the function overflows
+        x = 0.0
+        f, slope = residual(x)
+    if math.isnan(f):
+        raise ArithmeticError(f"the function is not defined at {guess!r} nor at 0")
+
     previous_step = math.inf
-    grow = 0.5
-    last_f = math.nan
-    for _ in range(600):
-        value, slope = fn(x)
-        f = value - target
+    expansion = 0.0
+    expand_next = False
+    while True:
         if f == 0.0:
             return x
         if f < 0.0:
-            lo = x
+            lo, f_lo = x, f
         else:
-            hi = x
-        newton = -f / slope if slope > 0.0 and math.isfinite(slope) else math.copysign(math.inf, -f)
-        if abs(newton) <= tolerance * max(1.0, abs(x)):
-            return x + newton
-        closed = math.isfinite(lo) and math.isfinite(hi)
+            hi, f_hi = x, f
+        closed = lo > -math.inf and hi < math.inf
+        if closed and hi - lo <= tolerance * max(1.0, abs(lo), abs(hi)):
+            break
+        if evaluations >= max_evaluations:
+            raise ArithmeticError("root search did not converge within the evaluation budget")
+        tol_x = tolerance * max(1.0, abs(x))
+        newton = -f / slope if (slope > 0.0 and math.isfinite(slope) and math.isfinite(f)) else math.nan
+        if not math.isfinite(newton):
+            newton = math.nan
+        confirming = False
         if closed:
-            if hi - lo <= tolerance * max(1.0, abs(lo), abs(hi)):
-                return 0.5 * (lo + hi)
-            x_new = x + newton
-            if not lo < x_new < hi or abs(newton) > 0.5 * previous_step:
-                x_new = 0.5 * (lo + hi)
+            candidate = x + newton
+            if expand_next or math.isnan(newton):
+                candidate = 0.5 * lo + 0.5 * hi
+            elif abs(newton) <= 0.5 * tol_x:
+                candidate = x + newton + math.copysign(0.5 * tol_x, newton)
+                confirming = lo < candidate < hi
+                if not confirming:
+                    candidate = 0.5 * lo + 0.5 * hi
+            elif not lo < candidate < hi or abs(newton) > 0.5 * previous_step:
+                candidate = 0.5 * lo + 0.5 * hi
         else:
-            # same side as before: Newton is creeping along an exponential, so stride longer
-            grow = grow * 2.0 if (f < 0.0) == (last_f < 0.0) else 1.0
-            wanted = abs(newton) * grow
-            step = math.copysign(min(wanted, max_step), newton)
-            if wanted > max_step:
-                max_step *= 2.0
-            x_new = x + step
-        last_f = f
-        previous_step = abs(x_new - x)
-        if previous_step <= tolerance * max(1.0, abs(x)):
-            return x_new
-        x = x_new
-    raise ArithmeticError("root search did not converge")
+            direction = 1.0 if f < 0.0 else -1.0
+            if expand_next or math.isnan(newton) or abs(newton) > 0.5 * previous_step:
+                wanted = 0.0 if math.isnan(newton) else 2.0 * abs(newton)
+                step = max(wanted, 2.0 * expansion, 2.0 * previous_step if math.isfinite(previous_step) else 0.0,
+                           1e-3 * max(1.0, abs(x)))
+                expansion = step
+            elif abs(newton) <= 0.5 * tol_x:
+                step = abs(newton) + 0.5 * tol_x
+                confirming = True
+            else:
+                step = abs(newton)
+            candidate = x + direction * step
+            if not math.isfinite(candidate):
+                candidate = math.copysign(_FLOAT_MAX, direction)
+            if candidate == x:
+                raise ArithmeticError(f"the function does not reach {target!r} "
+                                      f"(value {f + target!r} at {x!r})")
+        expand_next = False
+        if candidate == x:
+            break
+        was_below = f < 0.0
+        previous_step = abs(candidate - x)
+        x = candidate
+        f, slope = residual(x)
+        if math.isnan(f):
+            if not closed:                      # overflow far out: past the root
+                f = math.inf if direction > 0.0 else -math.inf
+            else:                               # undefined inside: keep the nearer half
+                f = math.inf if x > 0.5 * lo + 0.5 * hi else -math.inf
+        if confirming and (f < 0.0) == was_below:
+            expand_next = True                  # no sign change: the slope lied
+    return lo if abs(f_lo) <= abs(f_hi) else hi
 
 
 @dataclass(frozen=True)

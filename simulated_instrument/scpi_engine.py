@@ -57,6 +57,7 @@ ERROR_TEXT: dict[int, str] = {
     -226: "Lists not same length",
     -230: "Data corrupt or stale",
     -240: "Hardware error",
+    -300: "Device-specific error",
     -350: "Queue overflow",
     -363: "Input buffer overrun",
     -410: "Query INTERRUPTED",
@@ -64,6 +65,11 @@ ERROR_TEXT: dict[int, str] = {
 }
 
 ERROR_QUEUE_DEPTH = 16
+
+#: queued when executing a message raises something other than :class:`ScpiError` (a fault
+#: of the instrument's own firmware, here of the simulator): SCPI-1999's generic
+#: device-specific error, so the client learns of it from the error queue
+INTERNAL_ERROR_CODE = -300
 
 # Standard Event Status Register bits (IEEE 488.2 section 11.5.1).
 ESR_OPC = 1
@@ -807,6 +813,12 @@ class ScpiInstrument:
         self.errors.push(code, detail)
         self.status.esr |= esr_bit_for(code)
 
+    def push_internal_error(self, exc: BaseException) -> None:
+        """An unexpected exception while executing: queue ``-300,"Device-specific error;
+        <type>: <message>"`` (ESR bit 3) and carry on; a query unit that raised gives no
+        response, as any failing query does."""
+        self.push_error(INTERNAL_ERROR_CODE, f"{type(exc).__name__}: {exc}")
+
     # ---- status byte
     def status_byte(self, mav: bool = False) -> int:
         self.update_conditions()
@@ -860,8 +872,13 @@ class ScpiInstrument:
                     replies.append(result if isinstance(result, bytes) else str(result).encode("latin-1"))
             except ScpiError as exc:
                 self.push_error(exc.code, exc.detail)
-        self.update_conditions()
-        self._check_opc()
+            except Exception as exc:  # noqa: BLE001 - a fault of the simulator itself
+                self.push_internal_error(exc)
+        try:
+            self.update_conditions()
+            self._check_opc()
+        except Exception as exc:  # noqa: BLE001
+            self.push_internal_error(exc)
         if not replies:
             return None
         return b";".join(replies) + b"\n"

@@ -8,10 +8,13 @@ sockets and the connections and joins every thread it started.
 """
 from __future__ import annotations
 
+import logging
 import select
 import socket
 import threading
 from typing import Callable, Protocol
+
+log = logging.getLogger(__name__)
 
 MAX_LINE_BYTES = 1 << 20
 RECV_BYTES = 1 << 16
@@ -219,10 +222,20 @@ class TcpServer:
             line = bytes(conn.buffer[:idx])
             del conn.buffer[:idx + 1]
             if len(line) > MAX_LINE_BYTES:
-                handler.overrun(conn)
+                self._call(conn, handler.overrun, conn)
                 continue
-            handler.handle(conn, line)
+            self._call(conn, handler.handle, conn, line)
         if len(conn.buffer) > MAX_LINE_BYTES:
             conn.buffer.clear()
             conn.discarding = True
-            handler.overrun(conn)
+            self._call(conn, handler.overrun, conn)
+
+    @staticmethod
+    def _call(conn: Connection, method: Callable, *args) -> None:
+        """Last line of defence: a handler's exception is logged and the connection thread
+        goes on serving (the SCPI handler already turns its own into a queued error)."""
+        try:
+            method(*args)
+        except Exception:  # noqa: BLE001
+            log.exception("simulated %s instrument: unexpected error handling a message from %s",
+                          conn.role, conn.peer)
