@@ -125,6 +125,62 @@ def _pen(colour: str, style: str = "SolidLine", width: float = 2.0, alpha: int =
     return pen
 
 
+class _Legend(pg.LegendItem):
+    """pyqtgraph's legend, with its rows kept in two groups: the sweeps and overlays, then a
+    short tail (power, model fit) that stays last. A change lays the existing rows out again
+    instead of re-creating them, so adding a sweep makes one label, the tail is never
+    rebuilt, and no empty row is left behind when a sweep leaves (pyqtgraph's own legend
+    keeps them, and every later change walks them)."""
+
+    def __init__(self, **kwargs):
+        super().__init__(**kwargs)
+        self._tail: list[tuple[int, object, object]] = []    # (rank, sample, label)
+
+    def addItem(self, item, name) -> None:  # noqa: N802 - pyqtgraph name
+        self._insert(item, name, None)
+
+    def add_tail(self, item, name: str, rank: int) -> None:
+        """An entry after all the sweeps, in ``rank`` order."""
+        self._insert(item, name, rank)
+
+    def _insert(self, item, name, rank: int | None) -> None:
+        label = pg.LabelItem(name, color=self.opts["labelTextColor"], justify="left",
+                             size=self.opts["labelTextSize"])
+        sample = item if isinstance(item, self.sampleType) else self.sampleType(item)
+        sample.sigClicked.connect(self.sigSampleClicked)
+        body = self.items[:len(self.items) - len(self._tail)]
+        if rank is None:
+            body.append((sample, label))
+        else:
+            self._tail.append((rank, sample, label))
+            self._tail.sort(key=lambda entry: entry[0])
+        self.items = body + [(s, lab) for _, s, lab in self._tail]
+        self._relayout()
+
+    def removeItem(self, item) -> None:  # noqa: N802 - pyqtgraph name
+        for sample, label in self.items:
+            if sample.item is item or label.text == item:
+                self.items.remove((sample, label))
+                self._tail = [t for t in self._tail if t[1] is not sample]
+                self._removeItemFromLayout(sample, label)
+                self._relayout()
+                return
+
+    def clear(self) -> None:
+        self._tail = []
+        super().clear()
+
+    def _relayout(self) -> None:
+        layout = self.layout
+        for index in range(layout.count() - 1, -1, -1):
+            layout.removeAt(index)
+        for row, (sample, label) in enumerate(self.items):
+            layout.addItem(sample, row, 0, alignment=Qt.AlignmentFlag.AlignVCenter)
+            layout.addItem(label, row, 1)
+        self.rowCount = len(self.items)
+        self.updateSize()
+
+
 class _DataItem(pg.PlotDataItem):
     """A PlotDataItem that skips pyqtgraph's refresh after a view-range change when the
     refresh would not change the picture.
@@ -365,9 +421,9 @@ class CurvePlot(TimedPlotWidget):
                 pi.addItem(line, ignoreBounds=True)
         # Legend where these curves leave room: bottom left of an illuminated I-V plot (below
         # the zero line, before Voc), top left of a dark semilog plot.
-        self.legend = pg.LegendItem(labelTextSize="9pt", labelTextColor="#202020",
-                                    brush=pg.mkBrush(255, 255, 255, 230), pen=pg.mkPen("#B0B0B0"),
-                                    verSpacing=-4)
+        self.legend = _Legend(labelTextSize="9pt", labelTextColor="#202020",
+                              brush=pg.mkBrush(255, 255, 255, 230), pen=pg.mkPen("#B0B0B0"),
+                              verSpacing=-4)
         self.legend.setParentItem(pi.getViewBox())
         corner = (0, 0) if log_y else (0, 1)
         self.legend.anchor(corner, corner, offset=(8, 8) if log_y else (8, -8))
@@ -423,6 +479,10 @@ class CurvePlot(TimedPlotWidget):
         if self.power_view is not None:
             self._power_layer = FrozenLayer(-1.0)
             self.power_view.addItem(self._power_layer, ignoreBounds=True)
+        # Empty items made ahead, so that a sweep's first frame does not build them.
+        self._blanks: dict[str, _DataItem] = {}
+        while self._make_blanks():
+            pass
 
     # ------------------------------------------------------------------ layout
     def _user_moved_view(self, *args) -> None:
@@ -649,13 +709,12 @@ class CurvePlot(TimedPlotWidget):
         colour = palette.sweep_colour(trace.order)
         style, symbol, _ = palette.direction_style(trace.direction)
         markers = (trace.started.points_planned or 0) <= MARKER_LIMIT
-        current = _DataItem(
-            pen=_pen(colour, style, 2.0), symbol=symbol if markers else None, symbolSize=6,
-            symbolBrush=pg.mkBrush(colour), symbolPen=None, connect="finite", name=trace.label())
-        current.setZValue(10)
-        self.getPlotItem().addItem(current)
+        current = self._blank("current")
+        current.opts["name"] = trace.label()
+        current.setPen(_pen(colour, style, 2.0))
+        current.setSymbolBrush(pg.mkBrush(colour))
+        current.setSymbol(symbol if markers else None)
         self.legend.addItem(current, trace.label())
-        self._legend_tail()
         items = _Items(current=current, trace=trace, markers=markers, colour=colour, style=style)
         current.opts["_planned"] = int(trace.started.points_planned or 0)
         self.items[trace.uid] = items
@@ -665,24 +724,45 @@ class CurvePlot(TimedPlotWidget):
         self._update_placeholder()
         self.fit_view()
 
+    def _blank(self, kind: str) -> _DataItem:
+        """An empty item already in its plot: one made ahead on a quiet frame (see
+        :meth:`tidy`), else a new one."""
+        item = self._blanks.pop(kind, None)
+        return item if item is not None else self._make_blank(kind)
+
+    def _make_blank(self, kind: str) -> _DataItem:
+        item = _DataItem(connect="finite")
+        if kind == "current":
+            item.setSymbolSize(6)
+            item.setSymbolPen(None)
+            item.setZValue(10)
+            self.getPlotItem().addItem(item)   # takes the plot's log mode and downsampling
+        else:
+            item.setDownsampling(auto=True, method="peak")
+            self.power_view.addItem(item)
+        return item
+
+    def _make_blanks(self) -> bool:
+        """Make one missing blank item; True if one was made."""
+        for kind in ("current", "power") if self.power_view is not None else ("current",):
+            if kind not in self._blanks:
+                self._blanks[kind] = self._make_blank(kind)
+                return True
+        return False
+
     def _add_power(self, items: _Items) -> None:
-        power = _DataItem(pen=_pen(items.colour, "DotLine", 1.5, palette.POWER_ALPHA),
-                                connect="finite")
-        power.setDownsampling(auto=True, method="peak")
-        self.power_view.addItem(power)
+        power = self._blank("power")
+        power.setPen(_pen(items.colour, "DotLine", 1.5, palette.POWER_ALPHA))
         items.power = power
+        self._power_in_tail()
+
+    POWER_NAME = "power (right axis)"
+
+    def _power_in_tail(self) -> None:
+        """"power" and "model fit" stay after the sweeps in the legend."""
         if not self._power_in_legend:
             self._power_in_legend = True
-            self._legend_tail()
-
-    def _legend_tail(self) -> None:
-        """Keep "power" and "model fit" after the sweeps in the legend."""
-        for shown, sample, name in ((self._power_in_legend, self._power_sample,
-                                     "power (right axis)"),
-                                    (self._fit_in_legend, self._fit_sample, "model fit")):
-            if shown:
-                self.legend.removeItem(sample)
-                self.legend.addItem(sample, name)
+            self.legend.add_tail(self._power_sample, self.POWER_NAME, 0)
 
     def _layer_of(self, items: _Items) -> FrozenLayer:
         return self._old_layer if items.old else self._recent_layer
@@ -697,7 +777,8 @@ class CurvePlot(TimedPlotWidget):
            only ever grows on top (so the many old sweeps are never redrawn as a sweep
            ends; only the few recent ones are);
         3. the newest sweeps keep their markers up to MARKER_BUDGET markers per plot;
-        4. only the newest POWER_SWEEPS show their power curve.
+        4. only the newest POWER_SWEEPS show their power curve;
+        5. the empty items the next sweep will take are made.
         """
         self.tidy_pending = False
         ordered = list(self.items.values())
@@ -751,9 +832,15 @@ class CurvePlot(TimedPlotWidget):
         if stripped:
             self.tidy_pending = True
             return
+        hidden = False
         for items in ordered[:-POWER_SWEEPS]:
             if items.power is not None and items.power.isVisible():
                 items.power.setVisible(False)      # a frozen one: its layer hears it
+                hidden = True
+        if hidden:
+            self.tidy_pending = True
+            return
+        self.tidy_pending = self._make_blanks()
 
     def update_sweep(self, trace: SweepTrace) -> None:
         items = self.items.get(trace.uid)
@@ -787,12 +874,12 @@ class CurvePlot(TimedPlotWidget):
         pi = self.getPlotItem()
         if items.fit is None:
             items.fit = _DataItem(pen=_pen(palette.FIT_COLOUR, "SolidLine", 1.5),
-                                        connect="finite")
+                                  connect="finite")
             items.fit.setZValue(20)
             pi.addItem(items.fit)
             if not self._fit_in_legend:
                 self._fit_in_legend = True
-                self._legend_tail()
+                self.legend.add_tail(self._fit_sample, "model fit", 1)
         items.fit.setData(*curve)
         figures = (trace.analysis or {}).get("data_figures") or {}
         vmp, imp = figures.get("vmp_v"), figures.get("imp_a")
@@ -867,20 +954,13 @@ class TrackingPlot(CurvePlot):
         vb.enableAutoRange()
         self.power_view.enableAutoRange(axis=pg.ViewBox.YAxis)   # x follows the link
 
-    def _legend_tail(self) -> None:
-        if self._power_in_legend:
-            self.legend.removeItem(self._power_sample)
-            self.legend.addItem(self._power_sample, "voltage (right axis)")
+    POWER_NAME = "voltage (right axis)"
 
     def _add_power(self, items: _Items) -> None:
-        volts = _DataItem(pen=_pen(items.colour, "DashLine", 1.0, palette.POWER_ALPHA),
-                                connect="finite")
-        volts.setDownsampling(auto=True, method="peak")
-        self.power_view.addItem(volts)
+        volts = self._blank("power")
+        volts.setPen(_pen(items.colour, "DashLine", 1.0, palette.POWER_ALPHA))
         items.power = volts
-        if not self._power_in_legend:
-            self._power_in_legend = True
-            self._legend_tail()
+        self._power_in_tail()
 
     def update_sweep(self, trace: SweepTrace) -> None:
         items = self.items.get(trace.uid)
