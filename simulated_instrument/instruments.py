@@ -13,7 +13,8 @@ from .scpi_engine import (
     ScpiError, ScpiInstrument, format_nr3,
 )
 from .world import (
-    LIST_MAX_POINTS, OVP_MAX_V, SMU_CURRENT_RANGES_A, SMU_VOLTAGE_RANGES_V, SmuState, VirtualBench,
+    LIST_MAX_POINTS, OVP_MAX_V, SMU_CURRENT_RANGES_A, SMU_VOLTAGE_RANGES_V, STATUS_POLL_S, SmuState,
+    VirtualBench,
 )
 
 QUES_VOLTAGE = 1 << 0
@@ -22,6 +23,7 @@ QUES_TEMPERATURE = 1 << 4
 QUES_INTERLOCK = 1 << 9
 OPER_SETTLING = 1 << 1
 OPER_SWEEPING = 1 << 3
+STAGE_OFF_K = 2.0            # QUES TEMPerature while the stage is further than this from its set-point
 
 RANGES = {"VOLT": SMU_VOLTAGE_RANGES_V, "CURR": SMU_CURRENT_RANGES_A}
 UNITS = {"VOLT": "V", "CURR": "A"}
@@ -45,6 +47,19 @@ class BenchInstrument(ScpiInstrument):
 
     def spend_time(self, seconds: float) -> None:
         self.world.spend(seconds)
+
+    def settling(self) -> bool:
+        """Something this instrument reports is still on its way (lamp, stage, sweep)."""
+        return self.operation_pending()
+
+    def status_polled(self) -> None:
+        # At time scale 0 nothing else moves the clock while a client polls a status register:
+        # each poll of a settling instrument stands for the client's wait between polls.
+        w = self.world
+        if w.time_scale == 0:
+            w.advance_to_now()
+            if self.settling():
+                w.spend(STATUS_POLL_S)
 
 
 # =========================================================================== SMU
@@ -420,10 +435,12 @@ class ThermometerInstrument(BenchInstrument):
         self.world.advance_to_now()
         self.world.stage_setpoint_c = float(self.world.settings["stage"]["setpoint_c"])
 
-    def update_conditions(self) -> None:
+    def settling(self) -> bool:
         w = self.world
-        off = abs(w.stage_t_c - w.stage_setpoint_c) > 2.0
-        self.status.questionable.set_condition(QUES_TEMPERATURE if off else 0)
+        return abs(w.stage_t_c - w.stage_setpoint_c) > STAGE_OFF_K
+
+    def update_conditions(self) -> None:
+        self.status.questionable.set_condition(QUES_TEMPERATURE if self.settling() else 0)
 
     def build_commands(self, t: CommandTable) -> None:
         w = self.world

@@ -805,6 +805,9 @@ class ScpiInstrument:
     def spend_time(self, seconds: float) -> None:
         """Let ``seconds`` of simulated time pass."""
 
+    def status_polled(self) -> None:
+        """Called before a status query (``*STB?``, ``*ESR?``, ``STATus:...?``) is answered."""
+
     def self_test(self) -> int:
         return 0
 
@@ -956,6 +959,7 @@ class ScpiInstrument:
             return None
         if name == "*ESR" and q:
             no_params()
+            self.status_polled()
             self._check_opc()
             value, st.esr = st.esr, 0
             return str(value)
@@ -967,6 +971,7 @@ class ScpiInstrument:
             return None
         if name == "*STB" and q:
             no_params()
+            self.status_polled()
             return str(self.status_byte(mav=ctx.pending_replies > 0))
         if name == "*OPC":
             no_params()
@@ -1001,10 +1006,12 @@ class ScpiInstrument:
             mask = Integer(None, 0, 65535)
 
             def read_event(ctx: Context) -> str:
+                self.status_polled()
                 self.update_conditions()
                 return str(reg().read_event())
 
             def read_condition(ctx: Context) -> str:
+                self.status_polled()
                 self.update_conditions()
                 return str(reg().condition)
 

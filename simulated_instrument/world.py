@@ -39,6 +39,10 @@ SMU_CURRENT_RANGES_A = (1e-6, 1e-5, 1e-4, 1e-3, 1e-2, 1e-1, 1.0, 3.0)
 OVP_MAX_V = 210.0
 FAULT_SHORT_OHM = 0.01
 LIST_MAX_POINTS = 10_000
+#: simulated time one status poll (``*STB?``, ``*ESR?``, ``STAT:...?``) spends at time scale 0
+#: while its instrument is settling: it stands for the client's wait between two polls, so a
+#: client that polls (rather than blocking on ``*OPC?``) still sees the lamp or stage arrive
+STATUS_POLL_S = 0.1
 
 FAULT_NAMES = ("disconnect", "stall", "garble", "instrument-error", "interlock", "compliance",
                "overtemp", "light-failure")
