@@ -291,7 +291,9 @@ class _Builder:
             self.problem(path, line, f"cannot be read ({detail}); quote it if it is text",
                          node.value, "a number, true/false, null or text")
             return INVALID
-        except (ValueError, OverflowError, TypeError) as exc:
+        except (ValueError, OverflowError, TypeError, AttributeError, KeyError) as exc:
+            # (PyYAML's constructors of explicitly tagged scalars fail with AttributeError on
+            # "!!timestamp 2024-01-01x" and KeyError on "!!bool maybe")
             self.problem(path, line, f"cannot be read ({exc}); quote it if it is text",
                          node.value, "a number, true/false, null or text")
             return INVALID
@@ -358,7 +360,7 @@ class _Builder:
             return INVALID
         try:
             key = self.loader.construct_object(key_node, deep=True)
-        except (yaml.YAMLError, ValueError, OverflowError, TypeError):
+        except (yaml.YAMLError, ValueError, OverflowError, TypeError, AttributeError, KeyError):
             key = INVALID
         if not isinstance(key, str):
             hint = ""
