@@ -62,3 +62,14 @@ def test_every_base_file_is_valid_to_begin_with(tmp_path):
     curve.write_bytes(fuzz_files.csv_base())
     outcome = fuzz_files.run_cli(["fit", str(curve)])
     assert outcome.code == 0, outcome.err
+
+
+@pytest.mark.parametrize("scalar", ["!!timestamp 2024-01-01x", "!!bool maybe", "!!int 0x",
+                                    "!!float one", "!!binary '%%%'"])
+def test_explicitly_tagged_scalars_that_do_not_construct_are_refused(scalar, tmp_path):
+    # found by the fuzzer: PyYAML raised AttributeError (timestamp) and KeyError (bool)
+    for text in (f"schema: 1\nname: {scalar}\n", f"{scalar}: 1\nschema: 1\n"):
+        path = tmp_path / "p.yaml"
+        path.write_text(text, encoding="utf-8")
+        outcome = fuzz_files.run_cli(["check", str(path)])
+        assert fuzz_files.judge_refusal(outcome, allowed=(2,), file_name="p.yaml") == [], outcome.err
