@@ -237,13 +237,16 @@ class _Reduced:
     def solve_tensor(self, a_grid, rs_grid, r_idx, diode_idx, sw_r=None):
         """Solve the trials (a_grid[diode_idx[k]], rs_grid[r_idx]) of a tensor grid, with
         the exponentials and their dot products computed once per (Rs, a) pair.
-        ``sw_r`` (R, N) gives squared row weights per series resistance."""
+        ``a_grid`` (A,) is shared by every Rs value; (R, A) gives each Rs value its own
+        (trial k then takes a_grid[r_idx[k], diode_idx[.][k]]). ``sw_r`` (R, N) gives
+        squared row weights per series resistance."""
         v, y = self.v, self.y
         sw = np.broadcast_to(self.base_sw if sw_r is None else sw_r, (rs_grid.size, v.size))
         vd = v[None, :] + y[None, :] * rs_grid[:, None]                  # (R, N)
         vd_scale = np.max(np.abs(vd), axis=1)
         vdn = vd / vd_scale[:, None]
-        x = vd[:, None, :] / a_grid[None, :, None]                       # (R, A, N)
+        a_rows = a_grid[None, :] if a_grid.ndim == 1 else a_grid         # (1 or R, A)
+        x = vd[:, None, :] / a_rows[:, :, None]                          # (R, A, N)
         log_scale = np.maximum(x.max(axis=2), 0.0)                       # (R, A)
         e = np.exp(x - log_scale[..., None]) - np.exp(-log_scale)[..., None]
         ew = e * sw[:, None, :]
@@ -354,48 +357,75 @@ def _coarse_grid(red: _Reduced, ns_vt_v, rs_max_ohm):
     return a, rs, sol, minima, log_step, rs_step[idx_r], standard
 
 
-def _refine(red: _Reduced, a0, rs0, log_step, rs_step, start):
-    """Zoomed grids around one start; returns the best trial (a, rs, solution dict).
+class _Zoom:
+    """State of one start's zoomed refinement (see :func:`_refine`)."""
+
+    def __init__(self, red: _Reduced, a0, rs0, log_step, rs_step, start):
+        self.a_c, self.rs_c = np.array(a0, dtype=float), float(rs0)
+        self.la_step, self.r_step = log_step, rs_step
+        self.weights = red.first_order_weights(self.a_c, self.rs_c, start["i0"], start["g"])
+        self.best = None
+        self.shrinks = 0
+
+    def box(self, offsets, m):
+        """The a_k values (m*pts, a_k taking k*pts ... k*pts + pts - 1) and Rs values."""
+        a_values = np.concatenate([self.a_c[k] * np.exp(offsets * self.la_step)
+                                   for k in range(m)])
+        return a_values, np.maximum(self.rs_c + offsets * self.r_step, 0.0)
+
+
+def _refine(red: _Reduced, starts):
+    """Zoomed grids around each start of ``starts`` (tuples a0, rs0, log_step, rs_step,
+    solution dict); returns the best trial (a, rs, solution dict) of each.
 
     Each zoom is a small tensor grid (ZOOM_POINTS values of each a_k and of Rs) around
     the current best; the box shrinks around an interior minimum and moves, unshrunk,
-    when the minimum lies on its edge.
+    when the minimum lies on its edge. The starts advance together: one step of all of
+    them is one batch of trials (each start's rows weighted by its own best trial).
     """
     m = red.n_diodes
     pts = ZOOM_POINTS[m]
     offsets = np.linspace(-1.0, 1.0, pts)
-    a_c, rs_c = np.array(a0, dtype=float), float(rs0)
-    la_step, r_step = log_step, rs_step
-    weights = red.first_order_weights(a_c, rs_c, start["i0"], start["g"])
-    # trial index sets of the tensor grid: a_k takes values k*pts ... k*pts + pts - 1
+    zooms = [_Zoom(red, *start) for start in starts]
+    # trial index sets of one start's tensor grid
     mesh = np.meshgrid(*([np.arange(pts)] * (m + 1)), indexing="ij")
-    r_idx = mesh[0].ravel()
-    diode_idx = [mesh[k + 1].ravel() + k * pts for k in range(m)]
-    best = None
-    shrinks = 0
+    r_one = mesh[0].ravel()
+    diode_one = [mesh[k + 1].ravel() + k * pts for k in range(m)]
+    n_one = r_one.size
     for _ in range(ZOOM_MAX_STEPS):
-        if shrinks >= ZOOM_LEVELS:
+        live = [z for z in zooms if z.shrinks < ZOOM_LEVELS]
+        if not live:
             break
-        a_values = np.concatenate([a_c[k] * np.exp(offsets * la_step) for k in range(m)])
-        rs_values = np.maximum(rs_c + offsets * r_step, 0.0)
-        sol = red.solve_tensor(a_values, rs_values, r_idx, diode_idx,
-                               sw_r=red.base_sw * weights)
-        ssr = sol["ssr"]
-        if m == 2:
-            ssr = np.where(a_values[diode_idx[0]] <= a_values[diode_idx[1]], ssr, np.inf)
-        k = int(np.argmin(ssr))
-        a_best = np.array([a_values[d[k]] for d in diode_idx])
-        best = (a_best, float(rs_values[r_idx[k]]), {key: val[k] for key, val in sol.items()})
-        # shrink the box around an interior minimum; move it (same size) otherwise
-        on_edge = any(d[k] % pts in (0, pts - 1) for d in diode_idx) or (
-            r_idx[k] in (0, pts - 1) and best[1] > 0.0)
-        a_c, rs_c = best[0], best[1]
-        if not on_edge:
-            la_step /= ZOOM_SHRINK
-            r_step /= ZOOM_SHRINK
-            shrinks += 1
-        weights = red.first_order_weights(a_c, rs_c, best[2]["i0"], best[2]["g"])
-    return best
+        boxes = [z.box(offsets, m) for z in live]
+        # one Rs row per start and Rs value, each row with its start's a_k values
+        a_rows = np.repeat(np.stack([b[0] for b in boxes]), pts, axis=0)
+        rs_all = np.concatenate([b[1] for b in boxes])
+        sw_r = np.repeat(red.base_sw * np.stack([z.weights for z in live]), pts, axis=0)
+        r_idx = np.concatenate([r_one + j * pts for j in range(len(live))])
+        diode_idx = [np.tile(d, len(live)) for d in diode_one]
+        sol_all = red.solve_tensor(a_rows, rs_all, r_idx, diode_idx, sw_r=sw_r)
+        for j, z in enumerate(live):
+            a_values, rs_values = boxes[j]
+            part = slice(j * n_one, (j + 1) * n_one)
+            sol = {key: val[part] for key, val in sol_all.items()}
+            ssr = sol["ssr"]
+            if m == 2:
+                ssr = np.where(a_values[diode_one[0]] <= a_values[diode_one[1]], ssr, np.inf)
+            k = int(np.argmin(ssr))
+            a_best = np.array([a_values[d[k]] for d in diode_one])
+            z.best = (a_best, float(rs_values[r_one[k]]),
+                      {key: val[k] for key, val in sol.items()})
+            # shrink the box around an interior minimum; move it (same size) otherwise
+            on_edge = any(d[k] % pts in (0, pts - 1) for d in diode_one) or (
+                r_one[k] in (0, pts - 1) and z.best[1] > 0.0)
+            z.a_c, z.rs_c = z.best[0], z.best[1]
+            if not on_edge:
+                z.la_step /= ZOOM_SHRINK
+                z.r_step /= ZOOM_SHRINK
+                z.shrinks += 1
+            z.weights = red.first_order_weights(z.a_c, z.rs_c, z.best[2]["i0"],
+                                                z.best[2]["g"])
+    return [z.best for z in zooms]
 
 
 def screen_subset(voltage_v: np.ndarray, points: int | None):
@@ -437,12 +467,13 @@ def grid_search(voltage_v, current_a, weights, ns_vt_v, *, n_diodes, dark, rs_ma
     if standard is not None and standard not in chosen:
         chosen.append(standard)
     out = []
-    for k in chosen:
-        start = {key: val[k] for key, val in sol.items()}
-        if ZOOM_LEVELS:
-            a_k, rs_k, s = _refine(red, a[k], rs[k], log_step, rs_step[k], start)
-        else:
-            a_k, rs_k, s = a[k], float(rs[k]), start
+    starts = [(a[k], rs[k], log_step, rs_step[k], {key: val[k] for key, val in sol.items()})
+              for k in chosen]
+    if ZOOM_LEVELS:
+        refined = _refine(red, starts)
+    else:
+        refined = [(st[0], float(st[1]), st[4]) for st in starts]
+    for a_k, rs_k, s in refined:
         score = full.score(a_k, rs_k, s["iph"], s["i0"], s["g"])
         if any(np.allclose(a_k, o.n_ns_vt_v, rtol=1e-3)
                and abs(rs_k - o.series_resistance_ohm) <= 1e-3 * max(rs_k, 1e-12)
