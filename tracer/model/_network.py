@@ -179,6 +179,14 @@ def current_at_voltage(voltage_v, net: FlatNetwork, voc_v):
     """Terminal current [A] at terminal voltage ``voltage_v`` [V] (flat arrays)."""
     v = voltage_v
     rs = net.series_resistance_ohm
+    if (np.size(v) == 1 and net.size == 1 and np.size(voc_v) == 1
+            and float(np.reshape(rs, -1)[0]) > 0.0):  # one point, one set: plain floats
+        values = [float(getattr(net, f.name).reshape(-1)[0]) for f in fields(net)]
+        iph, i01, a1, i02, a2, rs_, g = values
+        current = _scalar.current_at_voltage(
+            float(np.reshape(v, -1)[0]), iph, i01, a1, i02, a2, rs_, g,
+            float(np.reshape(voc_v, -1)[0]), float(net.voltage_scale_v().reshape(-1)[0]))
+        return np.full(np.shape(v), current)
     lower = np.minimum(v, voc_v)
     upper = np.maximum(v, voc_v)
     # Above Voc the current is negative, so I01*(exp(Vd/a1)-1) <= Iph - I <= Iph + (V-Voc)/Rs
@@ -264,6 +272,14 @@ def maximum_power_point(net: FlatNetwork, voc_v):
     """
     rs = net.series_resistance_ohm
     a1 = net.n_ns_vt_1_v
+    if net.size == 1 and np.size(voc_v) == 1:  # one parameter set: plain floats
+        values = [float(getattr(net, f.name).reshape(-1)[0]) for f in fields(net)]
+        iph, i01, a1_, i02, a2, rs_, g = values
+        out = _scalar.maximum_power_point(
+            iph, i01, a1_, i02, a2, rs_, g, float(np.reshape(voc_v, -1)[0]),
+            float(net.voltage_scale_v().reshape(-1)[0]))
+        shape = np.shape(voc_v)
+        return tuple(np.full(shape, x) for x in out)
     lower = np.zeros_like(voc_v)
     upper = np.asarray(voc_v, dtype=float)
     # start: ideal-diode estimate Vmp ~ Voc - a*ln(1 + Voc/a) (common practice)

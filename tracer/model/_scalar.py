@@ -1,9 +1,10 @@
 """One parameter set, one unknown: the network's scalar problems in plain Python floats.
 
 The vectorised solvers of :mod:`tracer.model._network` spend most of their time in
-per-call overhead when the problem has a single element (the open-circuit voltage of
-one parameter set, solved before every current evaluation of a fit). These are the
-same equations, bracket, start and safeguarded Newton iteration
+per-call overhead when the problem has a single element: the open-circuit voltage of
+one parameter set (solved before every current evaluation of a fit), and its Isc and
+maximum power point (every ``figures()``). These are the same equations, bracket, start
+and safeguarded Newton iteration
 (:func:`tracer.model._newton.bracketed_newton`) for one element, with ``math`` instead
 of numpy: the results agree with the vectorised ones to rounding.
 """
@@ -127,3 +128,95 @@ def open_circuit_voltage(iph: float, i01: float, a1: float, i02: float, a2: floa
         return -(iph - m1 - x * g - m2), e1 / a1 + g + e2 / a2
 
     return bracketed_newton(residual, 0.0, upper, start, atol=atol)
+
+
+def _state(x: float, iph: float, i01: float, a1: float, i02: float, a2: float, g: float):
+    """I(Vd), D = -dI/dVd and dD/dVd at one junction voltage, as
+    :func:`tracer.model._network.junction_state` (same order of operations)."""
+    m1, e1 = exp_pair(i01, x / a1)
+    current = iph - m1 - x * g
+    d1 = e1 / a1
+    dd = d1 / a1
+    conductance = d1 + g
+    if i02 > 0.0:
+        m2, e2 = exp_pair(i02, x / a2)
+        current = current - m2
+        d2 = e2 / a2
+        conductance = conductance + d2
+        dd = dd + d2 / a2
+    return current, conductance, dd
+
+
+def junction_current(x: float, iph: float, i01: float, a1: float, i02: float, a2: float,
+                     g: float) -> float:
+    """I(Vd) as :func:`tracer.model._network.junction_current` (same order)."""
+    current = iph - x * g
+    current = current - exp_pair(i01, x / a1)[0]
+    if i02 > 0.0:
+        current = current - exp_pair(i02, x / a2)[0]
+    return current
+
+
+def maximum_power_point(iph: float, i01: float, a1: float, i02: float, a2: float, rs: float,
+                        g: float, voc: float, atol: float) -> tuple[float, float, float]:
+    """(Vmp, Imp, Pmax) of one parameter set: as
+    :func:`tracer.model._network.maximum_power_point`."""
+    upper = voc
+    start = upper - a1 * _log1p(upper / a1)
+    if start != start:
+        pass
+    elif start < 0.0:
+        start = 0.0
+    elif start > upper:
+        start = upper
+
+    def residual(x: float):            # -dP/dVd: increasing through the root
+        cur, d, dd = _state(x, iph, i01, a1, i02, a2, g)
+        return (x * d - cur * (1.0 + 2.0 * rs * d),
+                2.0 * d * (1.0 + rs * d) + dd * (x - 2.0 * cur * rs))
+
+    vd = bracketed_newton(residual, 0.0, upper, start, atol=atol)
+    imp = junction_current(vd, iph, i01, a1, i02, a2, g)
+    vmp = vd - imp * rs
+    return vmp, imp, vmp * imp
+
+
+def _min(a: float, b: float) -> float:
+    """numpy.minimum of two floats (NaN if either is NaN)."""
+    if a != a or b != b:
+        return math.nan
+    return a if a <= b else b
+
+
+def _lambert_current(v: float, iph: float, i0: float, a: float, rs: float, g: float) -> float:
+    """Single-diode current for Rs > 0, as :func:`tracer.model._lambert._current_lambert`."""
+    s = 1.0 + rs * g
+    inv_as = 1.0 / (a * s)
+    x = (v + rs * (iph + i0)) * inv_as + math.log(rs * i0 * inv_as)
+    w = float(wrightomega(x))
+    return (iph + i0) / s - v * (g / s) - (a / rs) * w
+
+
+def current_at_voltage(v: float, iph: float, i01: float, a1: float, i02: float, a2: float,
+                       rs: float, g: float, voc: float, atol: float) -> float:
+    """Terminal current at one terminal voltage of one parameter set with Rs > 0: as
+    :func:`tracer.model._network.current_at_voltage`."""
+    lower, upper = _min(v, voc), -_min(-v, -voc)
+    if v > voc:
+        excess = iph + (v - voc) / rs
+        bound = a1 * _log1p(excess / i01)
+        if i02 > 0.0:
+            bound = _min(bound, a2 * _log1p(excess / i02))
+        upper = _min(upper, bound)
+    start = v + rs * _lambert_current(v, iph, i01, a1, rs, g)
+    if i02 > 0.0:
+        start = _min(start, v + rs * _lambert_current(v, iph, i02, a2, rs, g))
+    if start != start:
+        start = upper
+
+    def residual(x: float):            # Vd - Rs*I(Vd) - V: increasing and convex
+        current, conductance, _ = _state(x, iph, i01, a1, i02, a2, g)
+        return x - rs * current - v, 1.0 + rs * conductance
+
+    vd = bracketed_newton(residual, lower, upper, start, atol=atol)
+    return junction_current(vd, iph, i01, a1, i02, a2, g)
