@@ -11,9 +11,11 @@ from .instruments import build_instruments
 from .harness import HarnessEndpoint
 from .scenario import Scenario, load_scenario
 from .server import Connection, TcpServer, bind_listeners
+from .server import _listen as listen_on
 from .world import FAULT_NAMES, VirtualBench
 
 ROLES = ("smu", "light", "thermometer", "switch")
+LOOPBACK = "127.0.0.1"
 DRIVERS = {"smu": "scpi-smu", "light": "scpi-light", "thermometer": "scpi-thermometer", "switch": "scpi-switch"}
 
 
@@ -108,10 +110,21 @@ class SimulatedBench:
         build_instruments(self.world)
         self.host = host
         self._sockets = bind_listeners(host, port_base, len(ROLES) + 1)
+        if self._sockets[-1].getsockname()[0] != LOOPBACK:
+            # the harness port injects faults and reads the true state: loopback only,
+            # whatever address the instruments are offered on (docs/scpi-dialect.md)
+            port = self._sockets[-1].getsockname()[1]
+            self._sockets[-1].close()
+            try:
+                self._sockets[-1] = listen_on(LOOPBACK, port)
+            except OSError:
+                for sock in self._sockets[:-1]:
+                    sock.close()
+                raise
         self.ports = {role: s.getsockname()[1] for role, s in zip(ROLES + ("harness",), self._sockets)}
         self.port_base = self.ports["smu"]
         self.addresses = {role: visa_address(host, self.ports[role]) for role in ROLES}
-        self.harness_address = (host, self.ports["harness"])
+        self.harness_address = (LOOPBACK, self.ports["harness"])
         self.server = TcpServer()
         for role, sock in zip(ROLES, self._sockets):
             self.server.add_listener(role, sock, ScpiEndpoint(self.world, role))
