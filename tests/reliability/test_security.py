@@ -59,13 +59,18 @@ def test_the_simulated_bench_listens_on_loopback_by_default():
     assert parser.parse_args([]).host == "127.0.0.1"
 
 
-@pytest.mark.xfail(strict=True, reason="simulated_instrument/bench.py binds the harness port on "
-                   "--host like the instrument ports; the dialect says loopback only (not fixed "
-                   "here: the file has another engineer's uncommitted changes)")
 def test_the_harness_port_stays_on_loopback_when_the_instruments_are_exposed():
-    bench = simulated_instrument.SimulatedBench(host="0.0.0.0")
+    # found by this check: with --host 0.0.0.0 the harness port (fault injection, true
+    # state) was opened on every interface too
+    from simulated_instrument.harness import query_state
+
+    bench = simulated_instrument.SimulatedBench(host="0.0.0.0").start()
     try:
         assert bench._sockets[-1].getsockname()[0] == "127.0.0.1"
+        assert bench.harness_address[0] == "127.0.0.1"
+        assert {s.getsockname()[0] for s in bench._sockets[:-1]} == {"0.0.0.0"}
+        assert query_state(*bench.harness_address)["messages"]["smu"] == 0
+        assert bench.bench_profile()["bench"]["simulator_control"].startswith("127.0.0.1:")
     finally:
         bench.close()
 
