@@ -12,13 +12,14 @@ rest on colour; the fitted model is a black line over the points.
 from __future__ import annotations
 
 import time
+from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import Sequence
 
 import numpy as np
 import pyqtgraph as pg
-from PyQt6.QtCore import QPointF, QRectF, Qt
-from PyQt6.QtGui import QColor, QFont, QPainter, QPen, QPixmap
+from PyQt6.QtCore import QPointF, QRectF, Qt, QTimer
+from PyQt6.QtGui import QColor, QFont, QPainter, QPen, QPixmap, QTransform
 from PyQt6.QtWidgets import (QGraphicsItem, QLabel, QSplitter, QTabWidget, QVBoxLayout,
                              QWidget)
 
@@ -252,7 +253,18 @@ class FrozenLayer(pg.GraphicsObject):
     looks exactly as it did live. The pixmap is redrawn whole when the view's transform or
     size changes, or after :meth:`invalidate` (an item restyled, hidden or removed); an item
     added on top is drawn onto it as it is (``renders`` counts the whole redraws).
+
+    At most one layer is redrawn whole per frame (:meth:`new_frame` starts one): when the
+    view moves, the others show their old picture moved and scaled to the new view for a
+    frame or two and are redrawn on the next frames, so that one range change does not
+    make one long frame. Content changes are always drawn at once; a screenshot
+    (:meth:`all_exact`) and an export draw every layer exactly.
     """
+
+    _budget = 1                                 # whole redraws left in this frame
+    _waiting: list["FrozenLayer"] = []          # layers showing a moved old picture
+    _exact = False
+    _tick_due = False
 
     def __init__(self, z: float):
         super().__init__()
@@ -260,9 +272,48 @@ class FrozenLayer(pg.GraphicsObject):
         self.items: list[QGraphicsItem] = []
         self._pixmap: QPixmap | None = None
         self._key: tuple | None = None
+        self._transform: QTransform | None = None     # the pixmap's item -> pixel transform
         self._drawn = 0                 # items[:_drawn] are in the pixmap
         self._stale = True
         self.renders = 0
+
+    # ------------------------------------------------------------------ frames
+    @classmethod
+    def new_frame(cls) -> None:
+        """A new frame: one whole redraw may happen; the layer waiting longest gets it."""
+        cls._budget = 1
+        while cls._waiting:
+            layer = cls._waiting.pop(0)
+            try:
+                if layer.scene() is not None and layer.items:
+                    layer.update()
+                    break
+            except RuntimeError:        # its window is gone
+                continue
+
+    @classmethod
+    def _tick(cls) -> None:
+        """No frame came (nothing streams, the user moved the view): catch up anyway."""
+        cls._tick_due = False
+        cls.new_frame()
+        if cls._waiting:
+            cls._schedule_tick()
+
+    @classmethod
+    def _schedule_tick(cls) -> None:
+        if not cls._tick_due:
+            cls._tick_due = True
+            QTimer.singleShot(60, cls._tick)
+
+    @classmethod
+    @contextmanager
+    def all_exact(cls):
+        """Within: every layer drawn exactly (for a screenshot)."""
+        cls._exact = True
+        try:
+            yield
+        finally:
+            cls._exact = False
 
     # ------------------------------------------------------------------ contents
     def add(self, item: QGraphicsItem) -> None:
@@ -315,13 +366,20 @@ class FrozenLayer(pg.GraphicsObject):
         t = painter.transform()
         key = (t.m11(), t.m12(), t.m21(), t.m22(), t.dx(), t.dy(), widget.width(),
                widget.height(), ratio)
-        if self._stale or key != self._key or self._pixmap is None:
+        moved = key != self._key
+        if (moved and not self._stale and self._pixmap is not None and not self._exact
+                and FrozenLayer._budget <= 0 and self._draw_moved(painter, t, option, widget)):
+            return
+        if self._stale or moved or self._pixmap is None:
+            FrozenLayer._budget -= 1
+            if self in FrozenLayer._waiting:
+                FrozenLayer._waiting.remove(self)
             size = (max(1, round(widget.width() * ratio)), max(1, round(widget.height() * ratio)))
             if self._pixmap is None or (self._pixmap.width(), self._pixmap.height()) != size:
                 self._pixmap = QPixmap(*size)
                 self._pixmap.setDevicePixelRatio(ratio)
             self._pixmap.fill(Qt.GlobalColor.transparent)
-            self._key, self._stale, self._drawn = key, False, 0
+            self._key, self._transform, self._stale, self._drawn = key, QTransform(t), False, 0
             self.renders += 1
         if self._drawn < len(self.items):
             # the pixmap's pixels are the viewport's: the same transform draws into it
@@ -336,6 +394,23 @@ class FrozenLayer(pg.GraphicsObject):
         painter.resetTransform()
         painter.drawPixmap(QPointF(0.0, 0.0), self._pixmap)
         painter.restore()
+
+    def _draw_moved(self, painter, t: QTransform, option, widget) -> bool:
+        """The old picture, moved and scaled to the new view, until a later frame redraws
+        it; False if that cannot be done."""
+        inverse, ok = self._transform.inverted()
+        if not ok:
+            return False
+        painter.save()
+        painter.setTransform(inverse * t)        # old pixels -> data -> new pixels
+        painter.drawPixmap(QPointF(0.0, 0.0), self._pixmap)
+        painter.restore()
+        if self._drawn < len(self.items):        # added since: drawn directly meanwhile
+            self._draw(painter, self.items[self._drawn:], option, widget)
+        if self not in FrozenLayer._waiting:
+            FrozenLayer._waiting.append(self)
+        FrozenLayer._schedule_tick()
+        return True
 
     def _draw(self, painter, items, option, widget) -> None:
         base = painter.transform()
@@ -1028,6 +1103,7 @@ class PlotArea(QWidget):
 
     def redraw(self, model: RunModel, changes) -> None:
         """Apply ``changes`` (from :meth:`RunModel.take_changes`)."""
+        FrozenLayer.new_frame()
         if changes.new_run:
             for p in self.plots():
                 p.clear_sweeps()

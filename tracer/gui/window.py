@@ -32,7 +32,7 @@ from tracer import events as ev
 from .bench_info import BenchInfo
 from .bridge import EventBridge, Worker
 from .history import HistoryPanel
-from .plots import FrameStats, PlotArea
+from .plots import FrameStats, FrozenLayer, PlotArea
 from .poller import InstrumentPoller
 from .results_panel import ResultsPanel
 from .run_model import RunModel
@@ -300,7 +300,8 @@ class BenchWindow(QMainWindow):
             self.show_status(f"{len(skipped)} earlier sweep(s) have no area: not shown as density")
 
     def save_plots_png(self, path: Path) -> Path:
-        pixmap = self.plots.grab()
+        with FrozenLayer.all_exact():
+            pixmap = self.plots.grab()
         if not pixmap.save(str(path), "PNG"):
             raise OSError(f"could not write {path}")
         return Path(path)
@@ -308,7 +309,9 @@ class BenchWindow(QMainWindow):
     def save_screenshot(self, path: Path) -> Path:
         path = Path(path)
         path.parent.mkdir(parents=True, exist_ok=True)
-        if not self.grab().save(str(path), "PNG"):
+        with FrozenLayer.all_exact():
+            image = self.grab()
+        if not image.save(str(path), "PNG"):
             raise OSError(f"could not write {path}")
         return path
 
