@@ -22,6 +22,7 @@ from dataclasses import asdict, dataclass, field
 from typing import Any, Callable
 
 DRIVER_TIMEOUT_S = 0.3
+SMU_DRIVER = "scpi-smu"          # the registry name a bench profile gives (drivers.DRIVERS)
 OPERATIONS = ("output_is_on", "protection_tripped", "interlock_open", "read_compliance",
               "read_overvoltage_protection", "measure", "set_level_and_measure",
               "list_points_done", "fetch_list_binary", "fetch_list_ascii")
@@ -344,14 +345,15 @@ def fuzz_wire(count: int, *, seed: int = 0) -> WireSummary:
     import simulated_instrument
     from drivers import DRIVERS
     from drivers.errors import InstrumentError
+    from tracer.app import VISA_BACKEND      # the composition root's choice of VISA backend
 
     state = {"n": 0, "last": None}
     t0 = time.monotonic()
     with simulated_instrument.running_bench(time_scale=0.0, seed=seed) as bench:
         upstream = ("127.0.0.1", bench.ports["smu"])
         with ReplyTamperer(upstream) as tamperer:
-            rm = pyvisa.ResourceManager("@py")
-            smu = DRIVERS["scpi-smu"](tamperer.address, resource_manager=rm,
+            rm = pyvisa.ResourceManager(VISA_BACKEND)
+            smu = DRIVERS[SMU_DRIVER](tamperer.address, resource_manager=rm,
                                       timeout_s=DRIVER_TIMEOUT_S)
             try:
                 smu.configure(source_mode="voltage", compliance=0.05, nplc=0.1, four_wire=True)

@@ -47,7 +47,6 @@ def child_env(extra: dict[str, str] | None = None) -> dict[str, str]:
     env["PYTHONPATH"] = os.pathsep.join(dict.fromkeys(paths))
     env.setdefault("QT_QPA_PLATFORM", "offscreen")
     env["PYTHONUNBUFFERED"] = "1"
-    env["PYTHONFAULTHANDLER"] = "0"
     env.pop("TRACER_LOGBOOK", None)
     if extra:
         env.update(extra)
