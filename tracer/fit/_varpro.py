@@ -35,6 +35,7 @@ class ProjectedProblem:
         self.m = n_diodes
         self.dark = dark
         self.beta = None
+        self._alpha_key = None     # the alpha of self.beta
 
     def _columns(self, alpha):
         """The columns A (N, p) of beta = (Iph, I0_k, G) at ``alpha``, and what their
@@ -88,6 +89,7 @@ class ProjectedProblem:
             q, _ = np.linalg.qr(scaled[:, active])
             jac = jac - q @ (q.T @ jac)
         self.beta = beta
+        self._alpha_key = np.asarray(alpha, dtype=float).tobytes()
         return r, jac
 
 
@@ -95,5 +97,6 @@ def minimise(problem: ProjectedProblem, alpha0, lb, ub, scale, *, max_iter=50, t
     """Levenberg-Marquardt over alpha; returns (alpha, beta)."""
     alpha = bounded_lm(lambda x: problem.solve(x)[:2], alpha0, lb, ub, scale,
                        max_iter=max_iter, ftol=tol, xtol=tol)
-    problem.solve(alpha)
+    if problem._alpha_key != np.asarray(alpha, dtype=float).tobytes():
+        problem.solve(alpha)       # the last evaluation was a rejected trial step
     return alpha, problem.beta
