@@ -159,9 +159,9 @@ def test_compiled_steps_carry_every_setting():
 def test_analysis_settings_in_si():
     path = [p for p in PROTOCOLS if p.name == "mini-module-36.yaml"][0]
     analysis = compile_plan(load_protocol(path)).analysis
-    # 0.045 mA/K = 4.5e-5 A/K and -72 mV/K = -0.072 V/K (SI prefixes m = 1e-3)
+    # 0.0225 mA/K = 2.25e-5 A/K and -72 mV/K = -0.072 V/K (SI prefixes m = 1e-3)
     assert analysis["temperature_coefficients"] == pytest.approx(
-        {"alpha_isc_a_per_k": 4.5e-5, "beta_voc_v_per_k": -0.072})
+        {"alpha_isc_a_per_k": 2.25e-5, "beta_voc_v_per_k": -0.072})
     assert analysis["reference_cell_source"] == "protocol"
     assert analysis["reference_cell"]["calibration_isc_a"] == 0.1185
     assert analysis["translation"]["procedures"] == [1, 2]
