@@ -15,6 +15,14 @@ LAMBDA_START = 1e-3
 LAMBDA_MIN, LAMBDA_MAX = 1e-12, 1e12
 
 
+def damping_factor(gain: float) -> float:
+    """Change of the damping after an accepted step of gain ratio ``gain`` (actual over
+    predicted drop), Nielsen's rule (H. B. Nielsen, "Damping parameter in Marquardt's
+    method", IMM-REP-1999-05, DTU): a third where the Gauss-Newton model predicted the
+    drop well, up to twice where it predicted it poorly."""
+    return max(1.0 / 3.0, 1.0 - (2.0 * gain - 1.0) ** 3)
+
+
 def _weights_and_cost(r, loss, f_scale):
     if loss == "soft_l1":
         z = (r / f_scale) ** 2
@@ -23,12 +31,15 @@ def _weights_and_cost(r, loss, f_scale):
 
 
 def bounded_lm(fun_jac, x0, lb, ub, x_scale, *, loss="linear", f_scale=1.0, max_iter=100,
-               ftol=1e-10, xtol=1e-10, max_eval=None):
+               ftol=1e-10, xtol=1e-10, max_eval=None, gain_damping=False):
     """Minimise sum(rho(r_k^2)) with r, J = fun_jac(x), lb <= x <= ub.
 
     Returns the final x. ``loss`` is ``"linear"`` or ``"soft_l1"`` (handled by iterative
     reweighting with the weights sqrt(rho'(z)) of the current point). At most
-    ``max_eval`` calls of ``fun_jac`` (default: 2 * max_iter).
+    ``max_eval`` calls of ``fun_jac`` (default: 2 * max_iter). After an accepted step the
+    damping is divided by 3; with ``gain_damping`` it follows the step's gain ratio
+    instead (:func:`damping_factor`), which stops Gauss-Newton steps from zigzagging
+    along a flat, curved valley.
     """
     max_eval = 2 * max_iter if max_eval is None else max_eval
     evals = 1
@@ -74,11 +85,18 @@ def bounded_lm(fun_jac, x0, lb, ub, x_scale, *, loss="linear", f_scale=1.0, max_
             lam *= 4.0
         if not accepted:
             return x
-        moved = np.max(np.abs((x_new - x) / x_scale))
+        s_eff = (x_new - x) / x_scale
+        moved = np.max(np.abs(s_eff))
         size = np.max(np.abs(x / x_scale))
         drop = cost - cost_new
+        if gain_damping:
+            # gain ratio: the drop against the one the Gauss-Newton model predicted
+            predicted = -(2.0 * (g @ s_eff) + s_eff @ a @ s_eff)
+            factor = damping_factor(drop / predicted) if predicted > 0 else 1.0 / 3.0
+        else:
+            factor = 1.0 / 3.0
         x, r, jac, sw, cost = x_new, r_new, jac_new, sw_new, cost_new
-        lam = max(lam / 3.0, LAMBDA_MIN)
+        lam = min(max(lam * factor, LAMBDA_MIN), LAMBDA_MAX)
         if drop <= ftol * cost or moved <= xtol * (size + xtol):
             break
     return x

@@ -94,9 +94,10 @@ class ProjectedProblem:
 
 
 def minimise(problem: ProjectedProblem, alpha0, lb, ub, scale, *, max_iter=50, tol=1e-12):
-    """Levenberg-Marquardt over alpha; returns (alpha, beta)."""
+    """Levenberg-Marquardt over alpha; returns (alpha, beta). With two diodes the
+    damping follows the gain ratio (the a_k of a two-diode fit lie in flat valleys)."""
     alpha = bounded_lm(lambda x: problem.solve(x)[:2], alpha0, lb, ub, scale,
-                       max_iter=max_iter, ftol=tol, xtol=tol)
+                       max_iter=max_iter, ftol=tol, xtol=tol, gain_damping=problem.m == 2)
     if problem._alpha_key != np.asarray(alpha, dtype=float).tobytes():
         problem.solve(alpha)       # the last evaluation was a rejected trial step
     return alpha, problem.beta

@@ -93,6 +93,7 @@ class _Fit:
     residual: np.ndarray           # objective residual (current or ln current), fitted points
     ssr: float
     covariance: np.ndarray         # of theta
+    model_current_a: np.ndarray | None = None  # at every point, when already solved
 
 
 def _parameter_count(n_diodes: int, dark: bool) -> int:
@@ -421,8 +422,16 @@ def _fit_model(problem: _Problem, n_diodes: int) -> _Fit:
         # soft_l1: rho'(z) = 1/sqrt(1 + z), z = (r/C)^2 (iteratively reweighted estimate)
         weights = 1.0 / np.sqrt(1.0 + (r / objective.f_scale) ** 2)
     cov = _covariance(jac, r, layout.size, weights)
-    theta, cov = _sort_diodes(layout, theta, cov)
-    return _Fit(layout=layout, theta=theta, residual=r, ssr=ssr, covariance=cov)
+    # the exact model current at the optimum, already solved for the residual (every
+    # point fitted, diodes not relabelled): kept for the caller
+    current = None
+    if problem.fit_mask.all():
+        current = objective.model(theta)
+    sorted_theta, cov = _sort_diodes(layout, theta, cov)
+    if sorted_theta is not theta:
+        current = None
+    return _Fit(layout=layout, theta=sorted_theta, residual=r, ssr=ssr, covariance=cov,
+                model_current_a=current)
 
 
 def _bic(fit: _Fit) -> float:
@@ -570,7 +579,9 @@ def fit_curve(voltage_v, current_a, *, model: str = "single", temperature_k: flo
     fit = fits[chosen]
     parameters, uncertainty = _report(fit, problem)
     notes = _notes(fit, problem)
-    current_model = model_current(fit.layout, fit.theta, v)
+    current_model = fit.model_current_a
+    if current_model is None:
+        current_model = model_current(fit.layout, fit.theta, v)
     residuals = i - current_model
     rmse = float(np.sqrt(np.mean(residuals**2)))
     rmse_log = float(np.sqrt(np.mean(fit.residual**2))) if dark else None
