@@ -150,7 +150,7 @@ class ScpiSession:
             self._check_link(command)
             self._state = "dirty"        # until the whole reply has been read
             self._write(full)
-            start = self._read_bytes(command, 2, timeout_s)
+            start = self._read_block_start(command, timeout_s)
             if start[:1] != b"#":
                 # No block: an error entry alone (the query failed) or garbage.
                 line = start if start.endswith(b"\n") else start + self._read_raw(command, timeout_s)
@@ -364,6 +364,25 @@ class ScpiSession:
                 return data
             if time.monotonic() >= deadline:
                 self._garbled(command, data, "reply not terminated by a newline")
+
+    def _read_block_start(self, command: str, timeout_s: float | None) -> bytes:
+        """The first two bytes of a reply that may be a binary block, awaited in slices like
+        ``_read_raw`` so that a connection closed meanwhile is noticed within a slice."""
+        waited = self.timeout_s if timeout_s is None else timeout_s
+        deadline = time.monotonic() + waited
+        while True:
+            started = time.monotonic()
+            slice_s = min(_READ_SLICE_S, max(deadline - started, 0.001))
+            try:
+                return self._read_bytes(command, 2, slice_s)
+            except LinkLostError:
+                if peer_closed(self._resource):
+                    self._state = "broken"
+                    raise self._link_lost(command, "connection closed by the instrument") from None
+                now = time.monotonic()
+                if now < deadline and now - started >= 0.5 * slice_s and self._state == "dirty":
+                    continue     # only this slice ran out; wait on until the time-out
+                raise
 
     def _read_bytes(self, command: str, count: int, timeout_s: float | None) -> bytes:
         try:
