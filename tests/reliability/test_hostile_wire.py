@@ -5,6 +5,8 @@ CI: 40 hypothesis cases; ``--run-slow``: 400.
 """
 from __future__ import annotations
 
+import time
+
 import pytest
 import pyvisa
 
@@ -64,3 +66,26 @@ def test_the_tamperer_spoils_what_it_is_told_to(tampered_smu):
     assert smu.read_compliance() == 0.05
     assert smu.output_is_on() is bench.state()["smu"]["output_on"]
     assert len(smu.fetch_list(0, 3)) == 3
+
+
+@pytest.mark.parametrize("call", ["read_compliance", "fetch_list"])
+def test_a_connection_closed_while_a_reply_is_awaited_is_noticed_at_once(call):
+    # found by the fault matrix (disconnect): pyvisa-py waits out the whole time-out on a
+    # closed socket, so the run's watchdog fired first and the cause read "watchdog"
+    with simulated_instrument.running_bench(time_scale=0.0, seed=0) as bench:
+        with fuzz_wire.ReplyTamperer(("127.0.0.1", bench.ports["smu"])) as tamperer:
+            rm = pyvisa.ResourceManager("@py")
+            smu = DRIVERS["scpi-smu"](tamperer.address, resource_manager=rm, timeout_s=5.0)
+            try:
+                smu.configure(source_mode="voltage", compliance=0.05, nplc=0.1, four_wire=True)
+                smu.load_list([0.1, 0.2], settle_s=0.0)
+                smu.output(True)
+                smu.start_list()
+                tamperer.arm(lambda r: None)          # the instrument closes instead of replying
+                t0 = time.monotonic()
+                with pytest.raises(LinkLostError, match="closed by the instrument"):
+                    smu.read_compliance() if call == "read_compliance" else smu.fetch_list(0, 2)
+                assert time.monotonic() - t0 < 1.0   # a 0.25 s slice, not the 5 s time-out
+            finally:
+                smu.close()
+                rm.close()
