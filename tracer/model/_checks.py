@@ -139,8 +139,8 @@ def scaled_exp_pair(scale, x):
         em1 = np.expm1(x)
         minus_one = scale * em1
         full = scale * (em1 + 1.0)
-    big = x > _EXP_SAFE
-    if np.any(big):
+    big = np.greater(x, _EXP_SAFE)
+    if big.any():
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             full = np.where(big, np.exp(x + np.log(scale)), full)
             minus_one = np.where(big, full - scale, minus_one)

@@ -27,10 +27,10 @@ def _current_ideal(v, iph, i0, a, g):
 
 def sd_current(v, iph, i0, a, rs, g):
     """Single-diode terminal current [A] at terminal voltage ``v`` [V]."""
-    positive = rs > 0
-    if np.all(positive):
+    positive = np.greater(rs, 0)
+    if positive.all():
         return _current_lambert(v, iph, i0, a, rs, g)
-    if not np.any(positive):
+    if not positive.any():
         return _current_ideal(v, iph, i0, a, g)
     rs_safe = np.where(positive, rs, 1.0)
     return np.where(positive, _current_lambert(v, iph, i0, a, rs_safe, g),

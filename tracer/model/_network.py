@@ -88,6 +88,15 @@ def make_flat(shape, photocurrent_a, saturation_current_1_a, n_ns_vt_1_v,
     return FlatNetwork(*arrays)
 
 
+def make_single(photocurrent_a, saturation_current_1_a, n_ns_vt_1_v, saturation_current_2_a,
+                n_ns_vt_2_v, series_resistance_ohm, shunt_conductance_s) -> FlatNetwork:
+    """A network of one element from scalar parameters (as ``make_flat((1,), ...)``)."""
+    return FlatNetwork(*(np.array([float(p)])
+                         for p in (photocurrent_a, saturation_current_1_a, n_ns_vt_1_v,
+                                   saturation_current_2_a, n_ns_vt_2_v, series_resistance_ohm,
+                                   shunt_conductance_s)))
+
+
 def make_uniform(photocurrent_a, saturation_current_1_a, n_ns_vt_1_v, saturation_current_2_a,
                  n_ns_vt_2_v, series_resistance_ohm, shunt_conductance_s) -> FlatNetwork:
     """A uniform network: scalar parameters (0-d arrays) shared by every element."""
@@ -157,15 +166,15 @@ def _single_diode_junction_bound(current_a, net: FlatNetwork):
 
 def open_circuit_voltage(net: FlatNetwork):
     """Voc [V]: the junction voltage where :math:`I(V_d) = 0` (there :math:`V = V_d`)."""
+    if net.size == 1 and net.has_second_diode():  # one set: the same iteration in floats
+        values = [float(getattr(net, f.name).reshape(-1)[0]) for f in fields(net)]
+        iph, i01, a1, i02, a2, _, g = values
+        return np.full(net.photocurrent_a.shape, _scalar.open_circuit_voltage(
+            iph, i01, a1, i02, a2, g, ATOL_PER_A * min(a1, a2)))
     upper = _diode_log_bound(net.photocurrent_a, net)
     lower = np.zeros_like(upper)
     if not net.has_second_diode():  # single diode: explicit
         return np.clip(_single_diode_junction_bound(0.0, net), lower, upper)
-    if net.size == 1:  # one parameter set: the same iteration in plain floats
-        values = [float(getattr(net, f.name).reshape(-1)[0]) for f in fields(net)]
-        iph, i01, a1, i02, a2, _, g = values
-        return np.full(upper.shape, _scalar.open_circuit_voltage(
-            iph, i01, a1, i02, a2, g, float(net.voltage_scale_v().reshape(-1)[0])))
     start = _single_diode_junction_bound(0.0, net)
 
     def residual(x, idx):  # -I(Vd): increasing and convex

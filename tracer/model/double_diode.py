@@ -100,14 +100,16 @@ def double_diode_current(voltage_v, photocurrent_a, saturation_current_1_a,
                                n_ns_vt_1_v, n_ns_vt_2_v, series_resistance_ohm,
                                shunt_resistance_ohm)
     v = np.asarray(voltage_v, dtype=float)
-    # Voc depends on the parameters only: solve it on their own shape, then broadcast
-    param_net, param_shape = _network_and_shape(0.0, params)
-    voc = np.reshape(_network.open_circuit_voltage(param_net), param_shape)
-    if param_shape == ():
+    if all(p.ndim == 0 for p in params):
         # one parameter set for every voltage: shared, not copied per point
         iph, i01, i02, a1, a2, rs, g = params
         net = _network.make_uniform(iph, i01, a1, i02, a2, rs, g)
+        voc = _network.open_circuit_voltage(_network.make_single(iph, i01, a1, i02, a2,
+                                                                 rs, g))[0]
         return _out(_network.current_at_voltage(v.ravel(), net, voc), v.shape)
+    # Voc depends on the parameters only: solve it on their own shape, then broadcast
+    param_net, param_shape = _network_and_shape(0.0, params)
+    voc = np.reshape(_network.open_circuit_voltage(param_net), param_shape)
     net, shape = _network_and_shape(v, params)
     flat_v = np.broadcast_to(v, shape).ravel()
     flat_voc = np.broadcast_to(voc, shape).ravel()
