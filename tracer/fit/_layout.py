@@ -120,3 +120,17 @@ def equation_terms(layout: Layout, theta, voltage_v, current_a):
     cols[:, layout.rs_index] = -current_a * conductance
     cols[:, layout.g_index] = -vd
     return f, cols, 1.0 + rs * conductance
+
+
+def first_order_denominator(layout: Layout, theta, voltage_v, current_a):
+    """1 + Rs*dD/dVd at (V, I): the third value of :func:`equation_terms`, alone (same
+    operations, without forming F and its gradient)."""
+    iph, log_i0, a, rs, g = layout.unpack(theta)
+    vd = voltage_v + current_a * rs
+    conductance = np.full_like(vd, g)
+    for li0, ak in zip(log_i0, a):
+        with np.errstate(over="ignore"):
+            x = np.minimum(vd / ak, _EXP_CAP)
+            i0_e = np.exp(np.minimum(li0 + x, _EXP_CAP))
+        conductance += i0_e / ak
+    return 1.0 + rs * conductance

@@ -36,7 +36,8 @@ from scipy.optimize import least_squares
 from tracer.fit import _grid, _varpro
 from tracer.fit._checks import as_curve
 from tracer.fit._lm import bounded_lm
-from tracer.fit._layout import Layout, current_jacobian, equation_terms, model_current
+from tracer.fit._layout import (Layout, current_jacobian, equation_terms, first_order_denominator,
+                                model_current)
 from tracer.fit.errors import FitError
 from tracer.fit.result import DOUBLE_KEYS, SINGLE_KEYS, FitResult
 from tracer.model import thermal_voltage
@@ -336,7 +337,7 @@ def _surrogate_polish(problem: _Problem, objective: _Objective, theta0, lb, ub, 
         return theta
     for _ in range(_SURROGATE_ROUNDS if rounds is None else rounds):
         i_j = objective.model(theta)
-        _, _, denom = equation_terms(layout, theta, v, i_j)
+        denom = first_order_denominator(layout, theta, v, i_j)
         if problem.dark:
             w = 1.0 / (denom * i_j)
             base = np.log(np.abs(i_j)) - objective.log_abs_i
