@@ -104,11 +104,22 @@ class FrameStats:
         self._pending_point_time = None
 
 
+class _ViewBox(pg.ViewBox):
+    """pyqtgraph's ViewBox repaints itself whole when an item is added, removed or changes
+    its bounds, so as to range automatically; with automatic ranging off (the plots here
+    set their ranges themselves) Qt repaints only the region the item covers."""
+
+    def queueUpdateAutoRange(self) -> None:  # noqa: N802 - pyqtgraph name
+        if self.state["autoRange"][0] is False and self.state["autoRange"][1] is False:
+            return
+        super().queueUpdateAutoRange()
+
+
 class TimedPlotWidget(pg.PlotWidget):
     """A PlotWidget that reports its paint time to a :class:`FrameStats`."""
 
     def __init__(self, stats: FrameStats, parent: QWidget | None = None):
-        super().__init__(parent=parent, background="w")
+        super().__init__(parent=parent, background="w", viewBox=_ViewBox())
         self._stats = stats
 
     def paintEvent(self, event) -> None:  # noqa: N802 - Qt name
@@ -195,10 +206,31 @@ class _DataItem(pg.PlotDataItem):
     view heights)."""
 
     _shown_for: tuple[QRectF, float] | None = None   # (view rect, view width px) shown for
+    #: While a layer draws the item, pyqtgraph's refresh of its curve and markers waits
+    #: until the layer is about to draw it (:meth:`flush`): new data and styles cost
+    #: nothing until then. ``xData``/``yData`` are always the data given.
+    lazy = False
+    _refresh_due = False
 
     def updateItems(self, styleUpdate: bool = True) -> None:  # noqa: N802, N803 - pyqtgraph
+        if self.lazy:
+            self._refresh_due = True
+            return
         self._shown_for = self._view_state()
         super().updateItems(styleUpdate)
+
+    def dataBounds(self, ax, frac=1.0, orthoRange=None):  # noqa: N802, N803 - pyqtgraph
+        self.flush()                    # an auto-ranging view asks: its curve must be current
+        return super().dataBounds(ax, frac, orthoRange)
+
+    def flush(self) -> None:
+        if self._refresh_due:
+            self._refresh_due = False
+            lazy, self.lazy = self.lazy, False
+            try:
+                self.updateItems(True)
+            finally:
+                self.lazy = lazy
 
     def viewRangeChanged(self, vb=None, ranges=None, changed=None) -> None:  # noqa: N802
         old, new = self._shown_for, self._view_state()
@@ -243,6 +275,23 @@ class _DataItem(pg.PlotDataItem):
                 and data.height() > 2 * self.opts["dynamicRangeHyst"] * limit * height)
 
 
+def _copy_style(source: pg.PlotDataItem, target: pg.PlotDataItem) -> None:
+    """The line and marker style of ``source`` for ``target`` (applied at its next setData)."""
+    for key in ("pen", "symbol", "symbolSize", "symbolBrush", "symbolPen", "connect"):
+        target.opts[key] = source.opts[key]
+
+
+def _device_length(curve: pg.PlotCurveItem, transform: QTransform) -> float:
+    """Length in device pixels of the line a curve item draws (its display data)."""
+    x, y = curve.xData, curve.yData
+    if x is None or len(x) < 2:
+        return 0.0
+    dx = np.diff(x) * transform.m11() + np.diff(y) * transform.m21()
+    dy = np.diff(x) * transform.m12() + np.diff(y) * transform.m22()
+    steps = np.hypot(dx, dy)
+    return float(np.sum(steps[np.isfinite(steps)]))
+
+
 class FrozenLayer(pg.GraphicsObject):
     """Plot items that no longer change, painted once into a pixmap the size of the plot's
     viewport and from then on only copied to the screen.
@@ -266,9 +315,10 @@ class FrozenLayer(pg.GraphicsObject):
     _exact = False
     _tick_due = False
 
-    def __init__(self, z: float):
+    def __init__(self, z: float, *, deferrable: bool = True):
         super().__init__()
         self.setZValue(z)
+        self.deferrable = deferrable
         self.items: list[QGraphicsItem] = []
         self._pixmap: QPixmap | None = None
         self._key: tuple | None = None
@@ -276,6 +326,11 @@ class FrozenLayer(pg.GraphicsObject):
         self._drawn = 0                 # items[:_drawn] are in the pixmap
         self._stale = True
         self.renders = 0
+        # growing items (a sweep being measured): their scratch item and points drawn
+        self._growing: dict[QGraphicsItem, pg.PlotDataItem] = {}
+        self._points_drawn: dict[QGraphicsItem, int] = {}
+        self._scratch_from: dict[QGraphicsItem, int] = {}
+        self._dash_done: dict[QGraphicsItem, float] = {}   # pixels of line drawn
 
     # ------------------------------------------------------------------ frames
     @classmethod
@@ -316,22 +371,51 @@ class FrozenLayer(pg.GraphicsObject):
             cls._exact = False
 
     # ------------------------------------------------------------------ contents
-    def add(self, item: QGraphicsItem) -> None:
+    def add(self, item: QGraphicsItem, *, scratch: pg.PlotDataItem | None = None,
+            repaint: bool = True) -> None:
+        """Draw ``item`` from now on. With ``scratch`` (an empty item of the same plot and
+        style) the item grows: after each ``setData`` call :meth:`grow`, and only its new
+        points are drawn, through the scratch item, onto the picture — a frame costs the
+        new points, and only the screen region they cover is repainted. ``repaint=False``
+        when the item is on screen already (handed over from another layer): the picture
+        is brought up to date at the next paint, whatever region it covers."""
         if item in self.items:
             return
         item.setOpacity(0.0)            # Qt no longer paints it; this layer does
+        if isinstance(item, _DataItem):
+            item.lazy = True
         item.visibleChanged.connect(self.invalidate)      # hidden from the legend
         self.items.append(item)
-        self.update()
+        if scratch is not None:
+            scratch.setOpacity(0.0)
+            self._growing[item] = scratch
+        if repaint:
+            self.update()
 
-    def remove(self, item: QGraphicsItem, *, restore: bool = True) -> None:
+    def remove(self, item: QGraphicsItem, *, restore: bool = True,
+               repaint: bool = True) -> pg.PlotDataItem | None:
+        """Stop drawing ``item``; returns its scratch item if it was growing.
+        ``repaint=False`` when another layer takes it over."""
         if item not in self.items:
-            return
+            return None
         self.items.remove(item)
         item.visibleChanged.disconnect(self.invalidate)
+        if isinstance(item, _DataItem):
+            item.lazy = False
+            if restore:
+                item.flush()
         if restore:
             item.setOpacity(1.0)
-        self.invalidate()
+        for state in (self._points_drawn, self._scratch_from, self._dash_done):
+            state.pop(item, None)
+        if not self.items and self._pixmap is not None and not self._stale:
+            self._pixmap.fill(Qt.GlobalColor.transparent)     # empty: nothing to redraw
+            self._drawn = 0
+            if repaint:
+                self.update()
+        else:
+            self.invalidate(repaint=repaint)
+        return self._growing.pop(item, None)
 
     def clear(self) -> None:
         for item in self.items:
@@ -340,12 +424,38 @@ class FrozenLayer(pg.GraphicsObject):
             except (TypeError, RuntimeError):
                 pass
         self.items = []
+        for state in (self._growing, self._points_drawn, self._scratch_from, self._dash_done):
+            state.clear()
         self._pixmap = None
         self.invalidate()
 
-    def invalidate(self, *args) -> None:
+    def grow(self, item: QGraphicsItem) -> None:
+        """``item`` has more points: hand the ones not drawn yet (and the last one drawn,
+        so that the line joins) to its scratch item, and repaint the region they cover."""
+        scratch = self._growing.get(item)
+        if scratch is None or item.xData is None:
+            return
+        n = len(item.xData)
+        start = max(self._points_drawn.get(item, 0) - 1, 0)
+        if n - start < 1 or self._transform is None:
+            self.update()
+            return
+        scratch.setData(item.xData[start:], item.yData[start:])
+        self._scratch_from[item] = start
+        rect = QRectF()
+        for part in (scratch.curve, scratch.scatter):
+            if part.isVisibleTo(scratch):
+                rect = rect.united(part.mapRectToItem(self, part.boundingRect()))
+        px, py = self.pixelVectors()
+        if px is not None and py is not None:      # a few pixels more: pens and markers
+            mx, my = 4 * px.length(), 4 * py.length()
+            rect.adjust(-mx, -my, mx, my)
+        self.update(rect)
+
+    def invalidate(self, *args, repaint: bool = True) -> None:
         self._stale = True
-        self.update()
+        if repaint:
+            self.update()
 
     # ------------------------------------------------------------------ painting
     def viewTransformChanged(self) -> None:  # noqa: N802 - pyqtgraph hook
@@ -367,8 +477,9 @@ class FrozenLayer(pg.GraphicsObject):
         key = (t.m11(), t.m12(), t.m21(), t.m22(), t.dx(), t.dy(), widget.width(),
                widget.height(), ratio)
         moved = key != self._key
-        if (moved and not self._stale and self._pixmap is not None and not self._exact
-                and FrozenLayer._budget <= 0 and self._draw_moved(painter, t, option, widget)):
+        if (moved and self.deferrable and not self._stale and self._pixmap is not None
+                and not self._exact and FrozenLayer._budget <= 0
+                and self._draw_moved(painter, t, option, widget)):
             return
         if self._stale or moved or self._pixmap is None:
             FrozenLayer._budget -= 1
@@ -380,16 +491,22 @@ class FrozenLayer(pg.GraphicsObject):
                 self._pixmap.setDevicePixelRatio(ratio)
             self._pixmap.fill(Qt.GlobalColor.transparent)
             self._key, self._transform, self._stale, self._drawn = key, QTransform(t), False, 0
+            self._points_drawn.clear()          # growing items: drawn again from their start
+            self._dash_done.clear()
             self.renders += 1
-        if self._drawn < len(self.items):
+        if self._drawn < len(self.items) or self._growing:
             # the pixmap's pixels are the viewport's: the same transform draws into it
             canvas = QPainter(self._pixmap)
             try:
                 canvas.setTransform(t)
-                self._draw(canvas, self.items[self._drawn:], option, widget)
+                if self._drawn < len(self.items):
+                    # a growing item is drawn by its scratch item, from its first point
+                    self._draw(canvas, [item for item in self.items[self._drawn:]
+                                        if item not in self._growing], option, widget)
+                    self._drawn = len(self.items)
+                self._draw_new_points(canvas, option, widget)
             finally:
                 canvas.end()
-            self._drawn = len(self.items)
         painter.save()
         painter.resetTransform()
         painter.drawPixmap(QPointF(0.0, 0.0), self._pixmap)
@@ -412,11 +529,37 @@ class FrozenLayer(pg.GraphicsObject):
         FrozenLayer._schedule_tick()
         return True
 
+    def _draw_new_points(self, canvas, option, widget) -> None:
+        for item, scratch in self._growing.items():
+            if item.xData is None or not item.isVisible():
+                continue
+            n = len(item.xData)
+            done = self._points_drawn.get(item, 0)
+            if done >= n:
+                continue
+            start = max(done - 1, 0)
+            if (self._scratch_from.get(item) != start or scratch.xData is None
+                    or len(scratch.xData) != n - start):
+                scratch.setData(item.xData[start:], item.yData[start:])
+            # a dashed line goes on where the drawn part stopped, not from a new dash
+            pen = scratch.curve.opts["pen"]
+            if pen is not None and pen.style() != Qt.PenStyle.SolidLine:
+                pen = QPen(pen)
+                pen.setDashOffset(self._dash_done.get(item, 0.0) / max(pen.widthF(), 1.0))
+                scratch.curve.opts["pen"] = pen
+            self._draw(canvas, [scratch], option, widget)
+            self._dash_done[item] = (self._dash_done.get(item, 0.0)
+                                     + _device_length(scratch.curve, canvas.transform()))
+            self._points_drawn[item] = n
+            self._scratch_from.pop(item, None)
+
     def _draw(self, painter, items, option, widget) -> None:
         base = painter.transform()
         for item in items:
             if not item.isVisible():
                 continue
+            if isinstance(item, _DataItem):
+                item.flush()
             parts = ((item.curve, item.scatter) if isinstance(item, pg.PlotDataItem)
                      else (item,))
             for part in parts:
@@ -458,6 +601,10 @@ class _Items:
     frozen: bool = False            # finished: drawn by a layer, no longer live
     old: bool = False               # beyond the newest LEGEND_SWEEPS: its final style
     fit_frozen: bool = False
+    scratch: pg.PlotDataItem | None = None        # draws the new points while live
+    power_scratch: pg.PlotDataItem | None = None
+    live_layer: "FrozenLayer | None" = None
+    live_power_layer: "FrozenLayer | None" = None
 
 
 class CurvePlot(TimedPlotWidget):
@@ -510,7 +657,7 @@ class CurvePlot(TimedPlotWidget):
         self.tidy_pending = False           # a sweep was added: layers, budgets later
         self.power_view: pg.ViewBox | None = None
         if with_power:
-            self.power_view = pg.ViewBox()
+            self.power_view = _ViewBox()
             # no automatic range here: an auto-ranging linked view would drag the shared
             # voltage axis along with every new point (the range policy sets it instead)
             self.power_view.disableAutoRange()
@@ -541,21 +688,29 @@ class CurvePlot(TimedPlotWidget):
         self._fit_sample = pg.PlotDataItem(pen=_pen(palette.FIT_COLOUR, "SolidLine", 1.5))
         self.items: dict[str, _Items] = {}
         self.overlay_items: dict[str, pg.PlotDataItem] = {}
-        # Finished sweeps, fits and overlays are drawn by layers (see FrozenLayer), each
-        # just below the live items of its kind: overlays 5, sweeps 10, fits 20, stars 30.
+        # Sweeps, fits and overlays are drawn by layers (see FrozenLayer), each just below
+        # the live items of its kind: overlays 5, sweeps 10, fits 20, stars 30. The sweep
+        # being measured has a layer of its own that draws only its new points.
         vb = pi.getViewBox()
         self._overlay_layer = FrozenLayer(4.5)
         self._old_layer = FrozenLayer(9.0)
         self._recent_layer = FrozenLayer(9.5)
+        # two, so that a sweep that ends while the next has begun leaves its layer empty
+        # (nothing to redraw) rather than taking its pixels out of a shared one
+        self._live_layers = [FrozenLayer(10.0, deferrable=False) for _ in range(2)]
         self._fit_layer = FrozenLayer(19.5)
-        for layer in (self._overlay_layer, self._old_layer, self._recent_layer, self._fit_layer):
+        for layer in (self._overlay_layer, self._old_layer, self._recent_layer,
+                      *self._live_layers, self._fit_layer):
             vb.addItem(layer, ignoreBounds=True)
         self._power_layer: FrozenLayer | None = None
+        self._live_power_layers: list[FrozenLayer] = []
         if self.power_view is not None:
             self._power_layer = FrozenLayer(-1.0)
-            self.power_view.addItem(self._power_layer, ignoreBounds=True)
+            self._live_power_layers = [FrozenLayer(-0.5, deferrable=False) for _ in range(2)]
+            for layer in (self._power_layer, *self._live_power_layers):
+                self.power_view.addItem(layer, ignoreBounds=True)
         # Empty items made ahead, so that a sweep's first frame does not build them.
-        self._blanks: dict[str, _DataItem] = {}
+        self._blanks: dict[str, list[_DataItem]] = {"current": [], "power": []}
         while self._make_blanks():
             pass
 
@@ -750,6 +905,10 @@ class CurvePlot(TimedPlotWidget):
             pi.removeItem(items.current)
             if items.in_legend:
                 self.legend.removeItem(items.current)
+            if items.scratch is not None:
+                self._recycle(items.scratch, "current")
+            if items.power_scratch is not None:
+                self._recycle(items.power_scratch, "power")
             if items.power is not None and self.power_view is not None:
                 self.power_view.removeItem(items.power)
             if items.fit is not None:
@@ -769,8 +928,23 @@ class CurvePlot(TimedPlotWidget):
         self._update_placeholder()
 
     def _sweep_layers(self) -> list[FrozenLayer]:
-        layers = [self._old_layer, self._recent_layer, self._fit_layer]
-        return layers + ([self._power_layer] if self._power_layer is not None else [])
+        layers = [self._old_layer, self._recent_layer, *self._live_layers, self._fit_layer]
+        return layers + ([self._power_layer, *self._live_power_layers]
+                         if self._power_layer is not None else [])
+
+    @staticmethod
+    def _free_live_layer(layers: list[FrozenLayer]) -> FrozenLayer:
+        """A live layer for a new sweep, above the one still drawing the last sweep."""
+        free = next((layer for layer in layers if not layer.items), layers[-1])
+        busy = [layer.zValue() for layer in layers if layer is not free and layer.items]
+        base = min(layer.zValue() for layer in layers)
+        if busy and max(busy) - base > 0.4:             # keep within the slot of its kind
+            for layer in layers:
+                if layer is not free:
+                    layer.setZValue(base)
+            busy = [base]
+        free.setZValue(max(busy) + 0.001 if busy else base)
+        return free
 
     def _update_placeholder(self) -> None:
         empty = not self.items and not self.overlay_items
@@ -789,8 +963,13 @@ class CurvePlot(TimedPlotWidget):
         current.setPen(_pen(colour, style, 2.0))
         current.setSymbolBrush(pg.mkBrush(colour))
         current.setSymbol(symbol if markers else None)
+        scratch = self._blank("current")
+        _copy_style(current, scratch)
+        live = self._free_live_layer(self._live_layers)
+        live.add(current, scratch=scratch, repaint=False)     # its points: see update_sweep
         self.legend.addItem(current, trace.label())
-        items = _Items(current=current, trace=trace, markers=markers, colour=colour, style=style)
+        items = _Items(current=current, trace=trace, markers=markers, colour=colour, style=style,
+                       scratch=scratch, live_layer=live)
         current.opts["_planned"] = int(trace.started.points_planned or 0)
         self.items[trace.uid] = items
         # The rest (power curve, layers, budgets) waits for the next redraws, so that no
@@ -799,11 +978,23 @@ class CurvePlot(TimedPlotWidget):
         self._update_placeholder()
         self.fit_view()
 
+    BLANKS = 2              # of each kind: a sweep takes two (its item and its scratch)
+
     def _blank(self, kind: str) -> _DataItem:
         """An empty item already in its plot: one made ahead on a quiet frame (see
-        :meth:`tidy`), else a new one."""
-        item = self._blanks.pop(kind, None)
-        return item if item is not None else self._make_blank(kind)
+        :meth:`tidy`) or given back, else a new one."""
+        spare = self._blanks[kind]
+        return spare.pop() if spare else self._make_blank(kind)
+
+    def _recycle(self, item: _DataItem, kind: str) -> None:
+        """A scratch item back to the spares (or out of the plot if enough are spare)."""
+        item.clear()
+        if len(self._blanks[kind]) < self.BLANKS:
+            self._blanks[kind].append(item)
+        elif kind == "current":
+            self.getPlotItem().removeItem(item)
+        else:
+            self.power_view.removeItem(item)
 
     def _make_blank(self, kind: str) -> _DataItem:
         item = _DataItem(connect="finite")
@@ -820,15 +1011,22 @@ class CurvePlot(TimedPlotWidget):
     def _make_blanks(self) -> bool:
         """Make one missing blank item; True if one was made."""
         for kind in ("current", "power") if self.power_view is not None else ("current",):
-            if kind not in self._blanks:
-                self._blanks[kind] = self._make_blank(kind)
+            if len(self._blanks[kind]) < self.BLANKS:
+                self._blanks[kind].append(self._make_blank(kind))
                 return True
         return False
 
     def _add_power(self, items: _Items) -> None:
+        self._start_power(items, _pen(items.colour, "DotLine", 1.5, palette.POWER_ALPHA))
+
+    def _start_power(self, items: _Items, pen: QPen) -> None:
         power = self._blank("power")
-        power.setPen(_pen(items.colour, "DotLine", 1.5, palette.POWER_ALPHA))
-        items.power = power
+        power.setPen(pen)
+        scratch = self._blank("power")
+        _copy_style(power, scratch)
+        items.live_power_layer = self._free_live_layer(self._live_power_layers)
+        items.live_power_layer.add(power, scratch=scratch, repaint=False)
+        items.power, items.power_scratch = power, scratch
         self._power_in_tail()
 
     POWER_NAME = "power (right axis)"
@@ -864,9 +1062,7 @@ class CurvePlot(TimedPlotWidget):
         if done or fits:
             for items in done:
                 items.frozen = True
-                self._layer_of(items).add(items.current)
-                if items.power is not None and self._power_layer is not None:
-                    self._power_layer.add(items.power)
+                self._settle(items)
             for items in fits:
                 items.fit_frozen = True
                 self._fit_layer.add(items.fit)
@@ -922,22 +1118,53 @@ class CurvePlot(TimedPlotWidget):
         if items is None:
             return
         x = trace.column("voltage_v")
-        if items.frozen and items.current.xData is not None and len(items.current.xData) == len(x):
-            return                       # nothing new (the sweep's end was announced)
-        y = trace.column("abs_y" if self.log_y else "y")
-        if items.markers and len(x) > MARKER_LIMIT:
-            items.current.setSymbol(None)
-            items.markers = False
-        items.current.setData(x, y)
-        if items.frozen:
-            self._layer_of(items).invalidate()
+        if not self._set_data(items, x, trace.column("abs_y" if self.log_y else "y")):
+            return
         if items.power is None and self.power_view is not None and len(x) > 1:
             self._add_power(items)
-            return                       # its data next frame: one new item per frame
         if items.power is not None:
-            items.power.setData(x, trace.column("p"))
-            if items.frozen:
-                self._power_layer.invalidate()
+            self._set_power(items, x, trace.column("p"))
+
+    def _set_data(self, items: _Items, x: np.ndarray, y: np.ndarray) -> bool:
+        """New points of a sweep; False if there are none."""
+        if items.current.xData is not None and len(items.current.xData) == len(x):
+            return False                 # nothing new (e.g. the sweep's end was announced)
+        layer = self._layer_of(items) if items.frozen else items.live_layer
+        if items.markers and len(x) > MARKER_LIMIT:
+            for item in (items.current, items.scratch):
+                if item is not None:
+                    item.setSymbol(None)
+            items.markers = False
+            layer.invalidate()
+        items.current.setData(x, y)
+        if items.frozen:
+            layer.invalidate()
+        else:
+            layer.grow(items.current)
+        return True
+
+    def _set_power(self, items: _Items, x: np.ndarray, y: np.ndarray) -> None:
+        items.power.setData(x, y)
+        if items.frozen:
+            self._power_layer.invalidate()
+        else:
+            items.live_power_layer.grow(items.power)
+
+    def _settle(self, items: _Items) -> None:
+        """A finished sweep: out of the live layers into those of finished sweeps; its
+        scratch items go back to the spares."""
+        # the same pixels, drawn by another layer: no repaint now (see FrozenLayer.add)
+        scratch = items.live_layer.remove(items.current, restore=False, repaint=False)
+        if scratch is not None:
+            self._recycle(scratch, "current")
+        items.scratch = None
+        self._layer_of(items).add(items.current, repaint=False)
+        if items.power is not None and self._power_layer is not None:
+            scratch = items.live_power_layer.remove(items.power, restore=False, repaint=False)
+            if scratch is not None:
+                self._recycle(scratch, "power")
+            items.power_scratch = None
+            self._power_layer.add(items.power, repaint=False)
 
     def show_fit(self, trace: SweepTrace, current_scale: float) -> None:
         items = self.items.get(trace.uid)
@@ -1032,29 +1259,19 @@ class TrackingPlot(CurvePlot):
     POWER_NAME = "voltage (right axis)"
 
     def _add_power(self, items: _Items) -> None:
-        volts = self._blank("power")
-        volts.setPen(_pen(items.colour, "DashLine", 1.0, palette.POWER_ALPHA))
-        items.power = volts
-        self._power_in_tail()
+        self._start_power(items, _pen(items.colour, "DashLine", 1.0, palette.POWER_ALPHA))
 
     def update_sweep(self, trace: SweepTrace) -> None:
         items = self.items.get(trace.uid)
         if items is None:
             return
         t = trace.column("t_s")
-        if items.frozen and items.current.xData is not None and len(items.current.xData) == len(t):
+        if not self._set_data(items, t, trace.column("p")):
             return
-        if items.markers and len(trace.buffer) > MARKER_LIMIT:
-            items.current.setSymbol(None)
-            items.markers = False
-        items.current.setData(t, trace.column("p"))
         if items.power is None and len(t) > 1:
             self._add_power(items)
         if items.power is not None:
-            items.power.setData(t, trace.column("voltage_v"))
-        if items.frozen:
-            self._layer_of(items).invalidate()
-            self._power_layer.invalidate()
+            self._set_power(items, t, trace.column("voltage_v"))
         self.fit_view()
 
 
