@@ -147,6 +147,15 @@ class _Legend(pg.LegendItem):
     def __init__(self, **kwargs):
         super().__init__(**kwargs)
         self._tail: list[tuple[int, object, object]] = []    # (rank, sample, label)
+        self._spare_label: pg.LabelItem | None = None
+
+    def make_spare(self) -> bool:
+        """Make the label the next entry will take (on a quiet frame); True if made."""
+        if self._spare_label is not None:
+            return False
+        self._spare_label = pg.LabelItem("", color=self.opts["labelTextColor"],
+                                         justify="left", size=self.opts["labelTextSize"])
+        return True
 
     def addItem(self, item, name) -> None:  # noqa: N802 - pyqtgraph name
         self._insert(item, name, None)
@@ -156,8 +165,12 @@ class _Legend(pg.LegendItem):
         self._insert(item, name, rank)
 
     def _insert(self, item, name, rank: int | None) -> None:
-        label = pg.LabelItem(name, color=self.opts["labelTextColor"], justify="left",
-                             size=self.opts["labelTextSize"])
+        label, self._spare_label = self._spare_label, None
+        if label is None:
+            label = pg.LabelItem(name, color=self.opts["labelTextColor"], justify="left",
+                                 size=self.opts["labelTextSize"])
+        else:
+            label.setText(name)
         sample = item if isinstance(item, self.sampleType) else self.sampleType(item)
         sample.sigClicked.connect(self.sigSampleClicked)
         body = self.items[:len(self.items) - len(self._tail)]
@@ -279,6 +292,16 @@ def _copy_style(source: pg.PlotDataItem, target: pg.PlotDataItem) -> None:
     """The line and marker style of ``source`` for ``target`` (applied at its next setData)."""
     for key in ("pen", "symbol", "symbolSize", "symbolBrush", "symbolPen", "connect"):
         target.opts[key] = source.opts[key]
+
+
+def _finite_min(values) -> float:
+    finite = [v for v in values if np.isfinite(v)]
+    return min(finite) if finite else np.nan
+
+
+def _finite_max(values) -> float:
+    finite = [v for v in values if np.isfinite(v)]
+    return max(finite) if finite else np.nan
 
 
 def _device_length(curve: pg.PlotCurveItem, transform: QTransform) -> float:
@@ -744,30 +767,16 @@ class CurvePlot(TimedPlotWidget):
             if self.items or self.overlay_items:
                 vb.enableAutoRange()
             return
-        xs, ys, ps = [], [], []
-        # xData/yData: the data as given (getData() is clipped to the present view)
-        for items in self.items.values():
-            x, y = items.current.xData, items.current.yData
-            if x is not None and len(x):
-                xs.append(x)
-                ys.append(y)
-            if items.power is not None:
-                p = items.power.yData
-                if p is not None and len(p):
-                    ps.append(p)
-        for item in self.overlay_items.values():
-            x, y = item.xData, item.yData
-            if x is not None and len(x):
-                xs.append(x)
-                ys.append(y)
-        if not xs:
+        # the data as given (xData/yData; getData() is clipped to the present view)
+        spans = [self._span(i.current) for i in self.items.values()]
+        spans += [self._span(i) for i in self.overlay_items.values()]
+        spans = [b for b in spans if b is not None]
+        if not spans:
             return
-        with np.errstate(all="ignore"):
-            x = np.concatenate(xs)
-            y = np.concatenate(ys)
-            x0, x1 = np.nanmin(x), np.nanmax(x)
-            ymax, ymin = np.nanmax(y), np.nanmin(y)
-            pmax = max((np.nanmax(p) for p in ps), default=np.nan)
+        powers = [self._span(i.power) for i in self.items.values() if i.power is not None]
+        x0, x1 = _finite_min(b[0] for b in spans), _finite_max(b[1] for b in spans)
+        ymin, ymax = _finite_min(b[2] for b in spans), _finite_max(b[3] for b in spans)
+        pmax = _finite_max(b[3] for b in powers if b is not None)
         if not (np.isfinite(x0) and np.isfinite(x1) and np.isfinite(ymax)):
             return
         top = 1.12 * ymax if ymax > 0 else 1.0
@@ -811,22 +820,15 @@ class CurvePlot(TimedPlotWidget):
     def _fit_log_view(self, vb) -> None:
         """Semilog plot: the data's voltage span; |current| down to at most six decades
         below its largest value (the dip where the current changes sign is cut there)."""
-        xs, ys = [], []
-        for item in [i.current for i in self.items.values()] + list(self.overlay_items.values()):
-            if item.xData is not None and len(item.xData):
-                xs.append(item.xData)
-                ys.append(item.yData)
-        if not xs:
+        spans = [self._span(i.current) for i in self.items.values()]
+        spans += [self._span(i) for i in self.overlay_items.values()]
+        spans = [b for b in spans if b is not None]
+        positive = [b for b in spans if np.isfinite(b[4])]
+        if not positive:
             return
-        with np.errstate(all="ignore"):
-            x = np.concatenate(xs)
-            y = np.concatenate(ys)
-            y = y[np.isfinite(y) & (y > 0)]
-            if not y.size:
-                return
-            x0, x1 = np.nanmin(x), np.nanmax(x)
-            top = np.log10(y.max()) + 0.15
-            bottom = max(np.log10(y.min()), top - 0.15 - self.LOG_DECADES) - 0.15
+        x0, x1 = _finite_min(b[0] for b in spans), _finite_max(b[1] for b in spans)
+        top = np.log10(max(b[5] for b in positive)) + 0.15
+        bottom = max(np.log10(min(b[4] for b in positive)), top - 0.15 - self.LOG_DECADES) - 0.15
         pad = 0.03 * (x1 - x0 or 1.0)
         wanted = (x0 - pad, x1 + pad, bottom, top)
         old = getattr(self, "_view", None)
@@ -846,6 +848,26 @@ class CurvePlot(TimedPlotWidget):
         self._view = wanted
         vb.disableAutoRange()
         vb.setRange(xRange=wanted[:2], yRange=wanted[2:], padding=0)
+
+    def _span(self, item) -> tuple[float, ...] | None:
+        """(x min, x max, y min, y max, smallest y > 0, largest y > 0) of an item's data,
+        kept until its data change (a finished sweep's never do), so that the range policy
+        costs the new points, not every point on the plot, per frame."""
+        x, y = item.xData, item.yData
+        if x is None or not len(x):
+            return None
+        cached = getattr(item, "_span_of", None)
+        if cached is not None and cached[0] is x:          # setData gives a new array
+            return cached[1]
+        fx, fy = x[np.isfinite(x)], y[np.isfinite(y)]
+        positive = fy[fy > 0]
+        span = tuple(float(v) for v in (
+            fx.min() if fx.size else np.nan, fx.max() if fx.size else np.nan,
+            fy.min() if fy.size else np.nan, fy.max() if fy.size else np.nan,
+            positive.min() if positive.size else np.nan,
+            positive.max() if positive.size else np.nan))
+        item._span_of = (x, span)
+        return span
 
     def _view_close_enough(self, wanted) -> bool:
         """The present range still shows everything wanted and is not more than ~8 % too
@@ -975,8 +997,7 @@ class CurvePlot(TimedPlotWidget):
         # The rest (power curve, layers, budgets) waits for the next redraws, so that no
         # single frame pays for everything a new sweep needs.
         self.tidy_pending = True
-        self._update_placeholder()
-        self.fit_view()
+        self._update_placeholder()          # the range follows at the end of the redraw
 
     BLANKS = 2              # of each kind: a sweep takes two (its item and its scratch)
 
@@ -1111,7 +1132,7 @@ class CurvePlot(TimedPlotWidget):
         if hidden:
             self.tidy_pending = True
             return
-        self.tidy_pending = self._make_blanks()
+        self.tidy_pending = self._make_blanks() or self.legend.make_spare()
 
     def update_sweep(self, trace: SweepTrace) -> None:
         items = self.items.get(trace.uid)
