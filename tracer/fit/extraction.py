@@ -61,6 +61,11 @@ _TOL = 1e-14
 #: residual variance s^2 = SSR/(N - p): far below any statistical meaning (a change of
 #: 1e-6 in chi-square), and on noise-free data still a relative 1e-6/(N - p) per step.
 _STAT_FTOL = 1e-6
+#: The linearised rounds stop earlier, once a round lowers the sum of squares by less than
+#: 1e-3 of the residual variance (parameters then within a few hundredths of their
+#: standard uncertainties of the optimum); the exact polish, to _STAT_FTOL, follows. A
+#: last round that confirms what the polish confirms anyway is saved.
+_SURROGATE_STAT_FTOL = 1e-3
 _MAX_NFEV = {1: 100, 2: 30}
 #: Relative size of a singular value of the scaled Jacobian treated as zero.
 _SINGULAR_RTOL = 1e-11
@@ -246,10 +251,11 @@ def _robust_scale(r: np.ndarray) -> float:
     return max(1.4826 * mad, 1e-300)
 
 
-def _ftol(objective: _Objective) -> float:
-    """Relative cost-change tolerance equivalent to _STAT_FTOL of the residual variance."""
+def _ftol(objective: _Objective, stat_ftol: float = None) -> float:
+    """Relative cost-change tolerance equivalent to ``stat_ftol`` (default _STAT_FTOL) of
+    the residual variance."""
     dof = max(objective.v.size - objective.layout.size, 1)
-    return max(_STAT_FTOL / dof, 1e-15)
+    return max((_STAT_FTOL if stat_ftol is None else stat_ftol) / dof, 1e-15)
 
 
 def _polish(objective: _Objective, theta0, lb, ub, x_scale, loss, f_scale, max_nfev):
@@ -370,7 +376,7 @@ def _surrogate_polish(problem: _Problem, objective: _Objective, theta0, lb, ub, 
         theta = theta + step
         drop = cost - new_cost
         cost = new_cost
-        if moved <= _SURROGATE_XTOL or drop <= _ftol(objective) * cost:
+        if moved <= _SURROGATE_XTOL or drop <= _ftol(objective, _SURROGATE_STAT_FTOL) * cost:
             break
     return theta
 
@@ -596,3 +602,4 @@ def fit_curve(voltage_v, current_a, *, model: str = "single", temperature_k: flo
     figures = None if dark else result.to_model().figures()
     elapsed = time.perf_counter() - started
     return dataclasses.replace(result, figures=figures, elapsed_s=elapsed)
+
