@@ -1,9 +1,18 @@
 """The live plots: illuminated I-V with power, dark I-V on a log axis, hold/MPP tracking.
 
-Every plot item is created once per sweep and then only fed with ``setData`` (the sweep
-buffer's own views, see :mod:`tracer.gui.run_model`). Redrawing is driven by the window's
-timer; :class:`FrameStats` times each redraw (the ``setData`` work plus the paint that
-follows it) and the delay from a point's time stamp to its first paint.
+Every sweep has its plot items (made ahead, on quiet frames), fed with ``setData`` (the
+sweep buffer's own views, see :mod:`tracer.gui.run_model`). Redrawing is driven by the
+window's timer; :class:`FrameStats` times each redraw (the ``setData`` work plus the paint
+that follows it) and the delay from a point's time stamp to its first paint.
+
+How a frame stays short (see ``tests/benchmarks/bench_gui.py``): Qt never paints the sweep
+items themselves; :class:`FrozenLayer` objects do, each into a pixmap the size of the view
+that later frames only copy. The sweep being measured has a layer that adds just its new
+points and repaints just the region they cover; a finished sweep moves to the layer of the
+newest sweeps, and once it is older than the legend shows, thin and without markers, to a
+layer that only ever grows. When the view's range changes, one layer per frame is drawn
+again; the others show their old picture moved to the new range meanwhile. Housekeeping
+(:meth:`CurvePlot.tidy`) is spread over the frames after a sweep starts.
 
 Styles: colours from the Okabe-Ito palette (:mod:`tracer.gui.palette`); forward sweeps
 solid with round markers, reverse sweeps dashed with triangles, so the direction does not
@@ -294,6 +303,15 @@ def _copy_style(source: pg.PlotDataItem, target: pg.PlotDataItem) -> None:
         target.opts[key] = source.opts[key]
 
 
+def _sample_style(item: pg.PlotDataItem) -> None:
+    """Hand the marker style to the item's marker part now, where a legend sample reads it
+    (an item drawn by a layer refreshes its parts only when it is drawn whole)."""
+    opts = item.opts
+    item.scatter.setPen(opts["symbolPen"], update=False)
+    item.scatter.setBrush(opts["symbolBrush"], update=False)
+    item.scatter.setSize(opts["symbolSize"], update=False)
+
+
 def _finite_min(values) -> float:
     finite = [v for v in values if np.isfinite(v)]
     return min(finite) if finite else np.nan
@@ -463,8 +481,7 @@ class FrozenLayer(pg.GraphicsObject):
         if n - start < 1 or self._transform is None:
             self.update()
             return
-        scratch.setData(item.xData[start:], item.yData[start:])
-        self._scratch_from[item] = start
+        self._prepare_scratch(scratch, item, start)
         rect = QRectF()
         for part in (scratch.curve, scratch.scatter):
             if part.isVisibleTo(scratch):
@@ -552,6 +569,14 @@ class FrozenLayer(pg.GraphicsObject):
         FrozenLayer._schedule_tick()
         return True
 
+    def _prepare_scratch(self, scratch, item, start: int) -> None:
+        """The scratch item gets the points from ``start`` on; the first one's marker is
+        drawn already (drawn twice, its soft edge would darken)."""
+        scratch.setData(item.xData[start:], item.yData[start:])
+        if start > 0 and scratch.scatter.data.size:
+            scratch.scatter.data["visible"][0] = False
+        self._scratch_from[item] = start
+
     def _draw_new_points(self, canvas, option, widget) -> None:
         for item, scratch in self._growing.items():
             if item.xData is None or not item.isVisible():
@@ -563,7 +588,7 @@ class FrozenLayer(pg.GraphicsObject):
             start = max(done - 1, 0)
             if (self._scratch_from.get(item) != start or scratch.xData is None
                     or len(scratch.xData) != n - start):
-                scratch.setData(item.xData[start:], item.yData[start:])
+                self._prepare_scratch(scratch, item, start)
             # a dashed line goes on where the drawn part stopped, not from a new dash
             pen = scratch.curve.opts["pen"]
             if pen is not None and pen.style() != Qt.PenStyle.SolidLine:
@@ -985,6 +1010,7 @@ class CurvePlot(TimedPlotWidget):
         current.setPen(_pen(colour, style, 2.0))
         current.setSymbolBrush(pg.mkBrush(colour))
         current.setSymbol(symbol if markers else None)
+        _sample_style(current)
         scratch = self._blank("current")
         _copy_style(current, scratch)
         live = self._free_live_layer(self._live_layers)
