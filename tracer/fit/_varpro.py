@@ -24,6 +24,29 @@ from tracer.fit._lm import bounded_lm
 _EXP_CAP = 300.0
 
 
+#: Largest condition number of the unit-norm columns for which the Gram matrix (whose
+#: condition number is its square) is used; above it, QR. Rounding then leaves relative
+#: errors below 1e-16 * 1e8 = 1e-8 in the projection, and second-order ones in the sum
+#: of squares (the least-squares residual is orthogonal to the columns).
+_GRAM_MAX_COND = 1e4
+
+
+def _gram_inverse(scaled: np.ndarray):
+    """Inverse of S^T S for unit-norm columns S, or None if S is too ill-conditioned."""
+    gram = scaled.T @ scaled
+    try:
+        chol = np.linalg.cholesky(gram)
+    except np.linalg.LinAlgError:
+        return None
+    inv_l = np.linalg.inv(chol)
+    gram_inv = inv_l.T @ inv_l
+    # |G|_F |G^-1|_F bounds the condition number of G = cond(S)^2 from above
+    bound = np.sqrt(np.sum(gram * gram) * np.sum(gram_inv * gram_inv))
+    if not (np.isfinite(bound) and bound < _GRAM_MAX_COND ** 2):
+        return None
+    return gram_inv
+
+
 class ProjectedProblem:
     """Residual of the linearised equation as a function of alpha = (a_1[, a_2], Rs)."""
 
@@ -61,13 +84,25 @@ class ProjectedProblem:
         a = alpha[:m]
         a_mat, vd, exps = self._columns(alpha)
         aw = a_mat * self.w[:, None]
-        norms = np.linalg.norm(aw, axis=0)
+        norms = np.sqrt(np.einsum("ij,ij->j", aw, aw))
         norms = np.where(norms > 0, norms, 1.0)
         scaled = aw / norms
-        coef, _ = nnls(scaled, self.t, maxiter=50 * scaled.shape[1])
+        # Well-conditioned columns (every single-diode fit, most two-diode ones): the
+        # least-squares solution from the Gram matrix, kept where it is nonnegative;
+        # otherwise (or near-collinear columns) the nonnegative solver and a QR basis
+        gram_inv = _gram_inverse(scaled)
+        coef = None
+        if gram_inv is not None:
+            coef = gram_inv @ (scaled.T @ self.t)
+            if not np.all(coef > 0.0):
+                coef = None
+        if coef is None:
+            coef, _ = nnls(scaled, self.t, maxiter=50 * scaled.shape[1])
+            active = coef > 0
+        else:
+            active = None
         beta = coef / norms
         r = aw @ beta - self.t
-        active = coef > 0
         # dA/dalpha beta, column by column: d/da_k touches diode k's column only; d/dRs
         # every diode's column and the shunt's (the photocurrent column is constant)
         off = 0 if self.dark else 1
@@ -85,7 +120,9 @@ class ProjectedProblem:
             term = -self.ie * beta[-1]
             d_rs = term if d_rs is None else d_rs + term
         jac[:, m] = 0.0 if d_rs is None else d_rs * self.w
-        if active.any():
+        if active is None:      # every column active: project with the Gram inverse
+            jac = jac - scaled @ (gram_inv @ (scaled.T @ jac))
+        elif active.any():
             q, _ = np.linalg.qr(scaled[:, active])
             jac = jac - q @ (q.T @ jac)
         self.beta = beta
