@@ -21,3 +21,17 @@ def test_bench_gui_reports_frame_times_and_latency(qapp):
     # every point of both streams reached the window's model
     assert figures["gui_long_sweep_points_shown"] == 400
     assert figures["gui_400pt_sweeps_points_shown"] == 400
+
+
+@pytest.mark.benchmark
+def test_bench_gui_replay_reports_cpu_per_frame_beside_the_naive_baseline(qapp):
+    spec = importlib.util.spec_from_file_location("bench_gui", BENCH)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    figures = module.run_replay(points=400, repeats=1)
+    for prefix in ("replay", "replay_naive"):
+        for tag in ("_long_sweep", "_400pt_sweeps"):
+            assert figures[f"{prefix}{tag}_frames"] >= 6          # 400 points, 66 per frame
+            for key in ("median_cpu_ms", "p99_cpu_ms", "worst_cpu_ms", "total_cpu_ms"):
+                value = figures[f"{prefix}{tag}_{key}"]
+                assert math.isfinite(value) and value > 0, (prefix, tag, key)
