@@ -6,13 +6,15 @@ Method
    parameters (ideality factors and series resistance) the others (Iph, I0s, 1/Rsh)
    enter the diode equation, evaluated at the measured current, linearly: a
    nonnegative linear least-squares solve gives them for a whole grid of trials at
-   once. The grid's competitive local minima are refined by zoomed grids.
+   once. The grid's competitive local minima are refined by zoomed grids. A curve of
+   more than 200 points is screened on 200 of them spread evenly over it; everything
+   after the grids works on every point.
 2. Linearised rounds. From the best start, the model current is solved exactly once
    per round; around it the current is linearised in the parameters (one Newton step
    of the implicit equation), and that explicit stand-in is minimised by variable
-   projection (:mod:`tracer.fit._varpro`). Rounds stop when the true sum of squares
-   stops falling. A runner-up start is taken only if its estimated minimum beats the
-   incumbent's true one.
+   projection (:mod:`tracer.fit._varpro`). Rounds stop when a round lowers the true sum
+   of squares by less than 1e-3 of the residual variance. A runner-up start is taken
+   only if its estimated minimum beats the incumbent's true one.
 3. Polish. A bounded trust-region least squares (``scipy.optimize.least_squares``)
    over *all* parameters on the true residual: measured current minus the model
    current solved exactly by :mod:`tracer.model` at each measured voltage. Saturation
