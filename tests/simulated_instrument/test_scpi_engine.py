@@ -2,8 +2,8 @@
 
 Rules checked here are those of IEEE 488.2 (program-message syntax, suffix multipliers of
 Table 7-2, common commands, status byte and ESR bits) and SCPI-1999 (error codes of Vol. 2
-section 21.8, the path rule of Vol. 1 section 6.2.4, status registers of Vol. 2 ch. 20), as
-summarised in /work/shared/reference/scpi-and-visa.md; the codes and texts are the standard's.
+section 21.8, the path rule of Vol. 1 section 6.2.4, status registers of Vol. 2 ch. 20); the
+codes and texts are the standard's.
 """
 from __future__ import annotations
 

@@ -1,7 +1,7 @@
 """The SMU and the other instruments over real pyvisa-py sockets (docs/scpi-dialect.md).
 
-Standard rules (error codes, path rule, block format) are those of IEEE 488.2 / SCPI-1999 as
-summarised in /work/shared/reference/scpi-and-visa.md. Physical expectations are checked
+Standard rules (error codes, path rule, block format) are those of IEEE 488.2 / SCPI-1999
+(docs/scpi-dialect.md lists what the bench implements). Physical expectations are checked
 against pvlib's single-diode solution where a number is involved.
 """
 from __future__ import annotations
