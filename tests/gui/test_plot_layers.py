@@ -134,12 +134,12 @@ def _plain(plot) -> QImage:
 
 
 def _difference(a: QImage, b: QImage) -> tuple[int, int]:
-    """(pixels that differ by more than 2 of 255 in a channel, pixels of ``b`` that are not
+    """(pixels that differ by more than 4 of 255 in a channel, pixels of ``b`` that are not
     the white background). A cached picture is blended over the background with
-    premultiplied alpha, which may round a soft marker edge differently by one step."""
+    premultiplied alpha, which may round a soft marker edge differently by a few steps."""
     assert a.size() == b.size()
     pa, pb = _pixels(a), _pixels(b)
-    differ = np.abs(pa.astype(int) - pb.astype(int)).max(axis=-1) > 2
+    differ = np.abs(pa.astype(int) - pb.astype(int)).max(axis=-1) > 4
     return int(np.count_nonzero(differ)), int(np.count_nonzero((pb != 255).any(axis=-1)))
 
 
@@ -304,3 +304,45 @@ def test_screenshots_draw_every_layer_exactly_after_a_range_change(qtbot):
     assert FrozenLayer._waiting
     differing, ink = _difference(_shown(plot), _plain(plot))
     assert ink > 5000 and differing == 0, (differing, ink)
+
+
+def _range_changes_during(bench, events, frame_points: int) -> list[int]:
+    """Range changes of the light plot in each frame while ``events`` are fed."""
+    vb = bench.area.light_plot.getPlotItem().getViewBox()
+    counts = []
+    vb.sigRangeChanged.connect(lambda *a: counts.__setitem__(-1, counts[-1] + 1))
+    points = 0
+    for e in events:
+        bench.pending.append(e)
+        if isinstance(e, ev.Point):
+            points += 1
+            if points % frame_points == 0:
+                counts.append(0)
+                bench.frame()
+    return counts
+
+
+def test_an_evenly_stepped_sweep_gets_its_whole_voltage_range_at_once(qtbot):
+    bench = Bench(qtbot)
+    bench.feed([_run_started()])
+    events = list(_sweep_events(0, 400, reverse=False))[:-1]     # still running
+    counts = _range_changes_during(bench, events, 40)
+    assert sum(counts[1:]) <= 1          # (the current may still grow once, past Voc)
+    (lo, hi), _ = bench.area.light_plot.getPlotItem().getViewBox().viewRange()
+    # the planned sweep runs from -0.1 V to 0.65 V (the event generator above)
+    assert lo <= -0.1 and hi >= 0.65
+
+
+def test_an_unevenly_stepped_sweep_still_grows_in_steps(qtbot):
+    bench = Bench(qtbot)
+    bench.feed([_run_started()])
+    events = list(_sweep_events(0, 400, reverse=False))[:-1]
+    # voltages on a quadratic spacing (steps grow): nothing to extrapolate
+    points = [e for e in events if isinstance(e, ev.Point)]
+    v = -0.1 + 0.75 * np.linspace(0.0, 1.0, len(points)) ** 2
+    events = [events[0]] + [ev.Point(**{**p.__dict__, "voltage_v": float(x), "setpoint": float(x)})
+                            for p, x in zip(points, v)]
+    counts = _range_changes_during(bench, events, 40)
+    assert sum(counts[1:]) >= 2
+    (lo, hi), _ = bench.area.light_plot.getPlotItem().getViewBox().viewRange()
+    assert lo <= -0.1 and hi >= v[-1]

@@ -649,6 +649,7 @@ class _Items:
     frozen: bool = False            # finished: drawn by a layer, no longer live
     old: bool = False               # beyond the newest LEGEND_SWEEPS: its final style
     fit_frozen: bool = False
+    planned_x: tuple[float, float] | None = None  # see CurvePlot._planned_x
     scratch: pg.PlotDataItem | None = None        # draws the new points while live
     power_scratch: pg.PlotDataItem | None = None
     live_layer: "FrozenLayer | None" = None
@@ -808,8 +809,14 @@ class CurvePlot(TimedPlotWidget):
         # below zero: the curve past Voc down to -35 % of the top, and never less than
         # -25 %, which keeps the bottom-left corner free for the legend
         bottom = min(-0.25 * top, max(ymin, -0.35 * top) - 0.05 * top)
-        pad = 0.03 * (x1 - x0 or 1.0)
         ptop = 1.12 * pmax if np.isfinite(pmax) and pmax > 0 else 1.0
+        planned = self._planned_x() if self.running_sweep else None
+        if planned is not None:
+            # the voltages the sweep will reach, and at most the power they can give
+            x0, x1 = min(x0, planned[0]), max(x1, planned[1])
+            if ymax > 0:
+                ptop = max(ptop, 1.12 * max(abs(x0), abs(x1)) * ymax)
+        pad = 0.03 * (x1 - x0 or 1.0)
         wanted = (x0 - pad, x1 + pad, bottom, top, ptop)
         old = getattr(self, "_view", None)
         if old is not None and self.running_sweep:
@@ -852,6 +859,9 @@ class CurvePlot(TimedPlotWidget):
         if not positive:
             return
         x0, x1 = _finite_min(b[0] for b in spans), _finite_max(b[1] for b in spans)
+        planned = self._planned_x() if self.running_sweep else None
+        if planned is not None:
+            x0, x1 = min(x0, planned[0]), max(x1, planned[1])
         top = np.log10(max(b[5] for b in positive)) + 0.15
         bottom = max(np.log10(min(b[4] for b in positive)), top - 0.15 - self.LOG_DECADES) - 0.15
         pad = 0.03 * (x1 - x0 or 1.0)
@@ -873,6 +883,33 @@ class CurvePlot(TimedPlotWidget):
         self._view = wanted
         vb.disableAutoRange()
         vb.setRange(xRange=wanted[:2], yRange=wanted[2:], padding=0)
+
+    def _planned_x(self) -> tuple[float, float] | None:
+        """Where the sweep being measured will end, when its first points are evenly
+        stepped: the first point plus the step times the planned count. The range then
+        takes the whole sweep at once instead of growing in steps (each step redraws the
+        axes and every layer). None for a sweep that is not evenly stepped (a list, a
+        logarithmic spacing, a current-sourced sweep), which grows as before."""
+        live = [i for i in self.items.values() if i.trace.finished is None]
+        if not live:
+            return None
+        items = live[-1]
+        planned = int(items.trace.started.points_planned or 0)
+        x = items.current.xData
+        if x is None or len(x) < 3 or planned <= len(x):
+            return None
+        cached = getattr(items, "planned_x", None)
+        if cached is not None:
+            return cached
+        head = x[:64]
+        steps = np.diff(head)
+        step = float(head[-1] - head[0]) / (len(head) - 1)
+        if not (np.all(np.isfinite(head)) and step != 0.0
+                and np.all(np.abs(steps - step) <= 0.05 * abs(step))):
+            return None
+        end = float(head[0]) + step * (planned - 1)
+        items.planned_x = (min(float(head[0]), end), max(float(head[0]), end))
+        return items.planned_x
 
     def _span(self, item) -> tuple[float, ...] | None:
         """(x min, x max, y min, y max, smallest y > 0, largest y > 0) of an item's data,
