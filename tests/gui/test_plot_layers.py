@@ -346,3 +346,18 @@ def test_an_unevenly_stepped_sweep_still_grows_in_steps(qtbot):
     assert sum(counts[1:]) >= 2
     (lo, hi), _ = bench.area.light_plot.getPlotItem().getViewBox().viewRange()
     assert lo <= -0.1 and hi >= v[-1]
+
+
+def test_a_noisy_sweep_does_not_move_the_range_at_every_new_highest_point(qtbot):
+    bench = Bench(qtbot)
+    bench.feed([_run_started()])
+    rng = np.random.default_rng(7)
+    events = list(_sweep_events(0, 400, reverse=False))[:-1]
+    # measurement noise (invented: 0.2 mV, 50 uA rms) on every point
+    events = [events[0]] + [
+        ev.Point(**{**p.__dict__, "voltage_v": p.voltage_v + rng.normal(0, 2e-4),
+                    "current_a": p.current_a + rng.normal(0, 5e-5)})
+        for p in events[1:]]
+    counts = _range_changes_during(bench, events, 20)
+    # the view grows when a point leaves it: a handful of times, not at each new maximum
+    assert sum(counts[1:]) <= 3, counts

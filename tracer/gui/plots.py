@@ -372,6 +372,7 @@ class FrozenLayer(pg.GraphicsObject):
         self._points_drawn: dict[QGraphicsItem, int] = {}
         self._scratch_from: dict[QGraphicsItem, int] = {}
         self._dash_done: dict[QGraphicsItem, float] = {}   # pixels of line drawn
+        self._watching: dict[QGraphicsItem, object] = {}     # item -> its visibility slot
 
     # ------------------------------------------------------------------ frames
     @classmethod
@@ -425,7 +426,8 @@ class FrozenLayer(pg.GraphicsObject):
         item.setOpacity(0.0)            # Qt no longer paints it; this layer does
         if isinstance(item, _DataItem):
             item.lazy = True
-        item.visibleChanged.connect(self.invalidate)      # hidden from the legend
+        watch = self._watching[item] = lambda: self._visibility_changed(item)
+        item.visibleChanged.connect(watch)        # hidden from the legend, or by a budget
         self.items.append(item)
         if scratch is not None:
             scratch.setOpacity(0.0)
@@ -440,7 +442,7 @@ class FrozenLayer(pg.GraphicsObject):
         if item not in self.items:
             return None
         self.items.remove(item)
-        item.visibleChanged.disconnect(self.invalidate)
+        item.visibleChanged.disconnect(self._watching.pop(item))
         if isinstance(item, _DataItem):
             item.lazy = False
             if restore:
@@ -459,11 +461,12 @@ class FrozenLayer(pg.GraphicsObject):
         return self._growing.pop(item, None)
 
     def clear(self) -> None:
-        for item in self.items:
+        for item, watch in self._watching.items():
             try:
-                item.visibleChanged.disconnect(self.invalidate)
+                item.visibleChanged.disconnect(watch)
             except (TypeError, RuntimeError):
                 pass
+        self._watching.clear()
         self.items = []
         for state in (self._growing, self._points_drawn, self._scratch_from, self._dash_done):
             state.clear()
@@ -495,6 +498,17 @@ class FrozenLayer(pg.GraphicsObject):
     def invalidate(self, *args, repaint: bool = True) -> None:
         self._stale = True
         if repaint:
+            self.update()
+
+    def _visibility_changed(self, item: QGraphicsItem) -> None:
+        """Redrawn whole at the next paint; only the region the item covers changes."""
+        self.invalidate(repaint=False)
+        rect = item.mapRectToItem(self, item.childrenBoundingRect())
+        px, py = self.pixelVectors()
+        if rect.isValid() and px is not None and py is not None:
+            mx, my = 4 * px.length(), 4 * py.length()
+            self.update(rect.adjusted(-mx, -my, mx, my))
+        else:
             self.update()
 
     # ------------------------------------------------------------------ painting
@@ -659,6 +673,8 @@ class _Items:
 class CurvePlot(TimedPlotWidget):
     """One plot: linear (illuminated, with a power axis on the right) or semilog (dark)."""
 
+    is_voltage_plot = True          # x is the terminal voltage (not so on the tracking plot)
+
     def __init__(self, stats: FrameStats, *, log_y: bool = False, with_power: bool = False,
                  placeholder: str = "", parent: QWidget | None = None):
         super().__init__(stats, parent)
@@ -746,7 +762,7 @@ class CurvePlot(TimedPlotWidget):
         self._recent_layer = FrozenLayer(9.5)
         # two, so that a sweep that ends while the next has begun leaves its layer empty
         # (nothing to redraw) rather than taking its pixels out of a shared one
-        self._live_layers = [FrozenLayer(10.0, deferrable=False) for _ in range(2)]
+        self._live_layers = [FrozenLayer(10.0 + k * 0.01, deferrable=False) for k in range(2)]
         self._fit_layer = FrozenLayer(19.5)
         for layer in (self._overlay_layer, self._old_layer, self._recent_layer,
                       *self._live_layers, self._fit_layer):
@@ -755,7 +771,8 @@ class CurvePlot(TimedPlotWidget):
         self._live_power_layers: list[FrozenLayer] = []
         if self.power_view is not None:
             self._power_layer = FrozenLayer(-1.0)
-            self._live_power_layers = [FrozenLayer(-0.5, deferrable=False) for _ in range(2)]
+            self._live_power_layers = [FrozenLayer(-0.5 + k * 0.01, deferrable=False)
+                                       for k in range(2)]
             for layer in (self._power_layer, *self._live_power_layers):
                 self.power_view.addItem(layer, ignoreBounds=True)
         # Empty items made ahead, so that a sweep's first frame does not build them.
@@ -811,30 +828,35 @@ class CurvePlot(TimedPlotWidget):
         bottom = min(-0.25 * top, max(ymin, -0.35 * top) - 0.05 * top)
         ptop = 1.12 * pmax if np.isfinite(pmax) and pmax > 0 else 1.0
         planned = self._planned_x() if self.running_sweep else None
+        power_bound = 0.0
         if planned is not None:
-            # the voltages the sweep will reach, and at most the power they can give
+            # the voltages the sweep will reach, and at most the power they can give (taken
+            # when the power axis must grow anyway, so that it grows once)
             x0, x1 = min(x0, planned[0]), max(x1, planned[1])
             if ymax > 0:
-                ptop = max(ptop, 1.12 * max(abs(x0), abs(x1)) * ymax)
+                power_bound = 1.12 * max(abs(x0), abs(x1)) * ymax
         pad = 0.03 * (x1 - x0 or 1.0)
-        wanted = (x0 - pad, x1 + pad, bottom, top, ptop)
         old = getattr(self, "_view", None)
+        if old is None:
+            ptop = max(ptop, power_bound)      # a first sweep: its power range at once
+        wanted = (x0 - pad, x1 + pad, bottom, top, ptop)
         if old is not None and self.running_sweep:
-            # A sweep in progress keeps extending its range: grow only, doubling the span on
-            # the side it grows, so the axes are redrawn a few times per sweep, not per frame.
+            # A sweep in progress keeps extending its range: grow only when a point leaves
+            # the view, doubling the span on the side it grows, so the axes are redrawn a
+            # few times per sweep, not per frame (nor per new highest point of a noisy curve).
             lo, hi, ylo, yhi, pt = old
             span = x1 - x0 + 2 * pad
             changed = False
-            if x0 - pad < lo:
+            if x0 < lo:
                 lo, changed = x0 - pad - span, True
-            if x1 + pad > hi:
+            if x1 > hi:
                 hi, changed = x1 + pad + span, True
-            if bottom < ylo:
+            if bottom < ylo - 1e-9 * (yhi - ylo):      # (the margin below is the policy's)
                 ylo, changed = min(bottom, max(bottom - (top - bottom), -0.4 * top)), True
-            if top > yhi or top < 0.8 * yhi:
+            if ymax > yhi or top < 0.8 * yhi:
                 yhi, changed = top, True
-            if ptop > pt:
-                pt, changed = max(ptop, 1.6 * pt), True
+            if np.isfinite(pmax) and pmax > pt:
+                pt, changed = max(ptop, 1.6 * pt, power_bound), True
             if not changed:
                 return
             wanted = (lo, hi, ylo, yhi, pt)
@@ -869,11 +891,12 @@ class CurvePlot(TimedPlotWidget):
         old = getattr(self, "_view", None)
         if old is not None and self.running_sweep:
             # grow only while a sweep runs (doubling the span on the side it grows)
+            # (when a point leaves the view: the margins of 0.15 decade are the policy's)
             span = x1 - x0 + 2 * pad
-            lo = old[0] if x0 - pad >= old[0] else x0 - pad - span
-            hi = old[1] if x1 + pad <= old[1] else x1 + pad + span
-            ylo = old[2] if bottom >= old[2] else bottom - 1.0
-            yhi = old[3] if top <= old[3] else top + 1.0
+            lo = old[0] if x0 >= old[0] else x0 - pad - span
+            hi = old[1] if x1 <= old[1] else x1 + pad + span
+            ylo = old[2] if bottom + 0.15 >= old[2] else bottom - 1.0
+            yhi = old[3] if top - 0.15 <= old[3] else top + 1.0
             wanted = (lo, hi, ylo, yhi)
             if wanted == old:
                 return
@@ -885,27 +908,28 @@ class CurvePlot(TimedPlotWidget):
         vb.setRange(xRange=wanted[:2], yRange=wanted[2:], padding=0)
 
     def _planned_x(self) -> tuple[float, float] | None:
-        """Where the sweep being measured will end, when its first points are evenly
-        stepped: the first point plus the step times the planned count. The range then
-        takes the whole sweep at once instead of growing in steps (each step redraws the
-        axes and every layer). None for a sweep that is not evenly stepped (a list, a
-        logarithmic spacing, a current-sourced sweep), which grows as before."""
+        """Where the voltage-sourced sweep being measured will end, when its first set
+        points are evenly stepped: the first one plus the step times the planned count. The
+        range then takes the whole sweep at once instead of growing in steps (each step
+        redraws the axes and every layer). None for a sweep that is not evenly stepped (a
+        list, a logarithmic spacing) or is current-sourced, which grows as before."""
         live = [i for i in self.items.values() if i.trace.finished is None]
         if not live:
             return None
         items = live[-1]
-        planned = int(items.trace.started.points_planned or 0)
-        x = items.current.xData
-        if x is None or len(x) < 3 or planned <= len(x):
+        if items.planned_x is not None:
+            return items.planned_x
+        started = items.trace.started
+        planned = int(started.points_planned or 0)
+        if started.source_mode != "voltage" or not self.is_voltage_plot:
             return None
-        cached = getattr(items, "planned_x", None)
-        if cached is not None:
-            return cached
-        head = x[:64]
+        head = items.trace.column("setpoint")[:64]
+        if len(head) < 3 or planned <= len(head):
+            return None
         steps = np.diff(head)
         step = float(head[-1] - head[0]) / (len(head) - 1)
         if not (np.all(np.isfinite(head)) and step != 0.0
-                and np.all(np.abs(steps - step) <= 0.05 * abs(step))):
+                and np.all(np.abs(steps - step) <= 0.01 * abs(step))):
             return None
         end = float(head[0]) + step * (planned - 1)
         items.planned_x = (min(float(head[0]), end), max(float(head[0]), end))
@@ -1018,17 +1042,10 @@ class CurvePlot(TimedPlotWidget):
 
     @staticmethod
     def _free_live_layer(layers: list[FrozenLayer]) -> FrozenLayer:
-        """A live layer for a new sweep, above the one still drawing the last sweep."""
-        free = next((layer for layer in layers if not layer.items), layers[-1])
-        busy = [layer.zValue() for layer in layers if layer is not free and layer.items]
-        base = min(layer.zValue() for layer in layers)
-        if busy and max(busy) - base > 0.4:             # keep within the slot of its kind
-            for layer in layers:
-                if layer is not free:
-                    layer.setZValue(base)
-            busy = [base]
-        free.setZValue(max(busy) + 0.001 if busy else base)
-        return free
+        """A live layer for a new sweep: the one not drawing the last sweep. (They are not
+        restacked: a z change repaints the whole view. For the frame or two until the last
+        sweep moves on, the new one may lie under it where they cross.)"""
+        return next((layer for layer in layers if not layer.items), layers[-1])
 
     def _update_placeholder(self) -> None:
         empty = not self.items and not self.overlay_items
@@ -1320,6 +1337,8 @@ class TrackingPlot(CurvePlot):
     """Holds and MPP tracking against time: power on the left axis (markers and line),
     terminal voltage on the right (thin dashed line, the same colour) — at open circuit the
     power is zero and the voltage is the story."""
+
+    is_voltage_plot = False
 
     def __init__(self, stats: FrameStats, parent: QWidget | None = None):
         super().__init__(stats, with_power=True, placeholder="holds and MPP tracking appear here",

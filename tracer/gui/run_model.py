@@ -29,8 +29,10 @@ from tracer.conventions import generator_current
 
 #: Columns of a sweep's buffer: volts, generator-convention amperes and watts, then the
 #: displayed current and power (mA or mA/cm2, mW or mW/cm2), |displayed current| for the
-#: semilog plot (0 -> NaN), seconds since the run started, and the compliance flag (0/1).
-SWEEP_COLUMNS = ("voltage_v", "current_a", "power_w", "y", "p", "abs_y", "t_s", "compliance")
+#: semilog plot (0 -> NaN), seconds since the run started, the compliance flag (0/1) and
+#: the value sourced (V or A, as the sweep sources; the plots read ahead from it).
+SWEEP_COLUMNS = ("voltage_v", "current_a", "power_w", "y", "p", "abs_y", "t_s", "compliance",
+                 "setpoint")
 
 
 class ColumnBuffer:
@@ -396,6 +398,7 @@ class RunModel:
         load = np.fromiter((p.current_a for p in points), dtype=float, count=n)
         t = np.fromiter((p.time for p in points), dtype=float, count=n)
         comp = np.fromiter((p.in_compliance for p in points), dtype=float, count=n)
+        setpoint = np.fromiter((p.setpoint for p in points), dtype=float, count=n)
         i = generator_current(load)
         power = v * i
         y = i * self.current_scale
@@ -403,7 +406,7 @@ class RunModel:
         abs_y[abs_y == 0.0] = np.nan             # log axis: no zero
         trace.buffer.extend(voltage_v=v, current_a=i, power_w=power, y=y,
                             p=power * self.current_scale, abs_y=abs_y,
-                            t_s=t - float(self.run.time), compliance=comp)
+                            t_s=t - float(self.run.time), compliance=comp, setpoint=setpoint)
         self.points_total += n
         ch = self._changes
         if trace not in ch.grown and trace not in ch.added:
