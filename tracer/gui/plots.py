@@ -1146,13 +1146,13 @@ class CurvePlot(TimedPlotWidget):
         frame pays for many (``tidy_pending`` stays set while more are due):
 
         1. finished sweeps, and fits, go into the layers (drawn once, then only copied);
-        2. sweeps beyond the newest LEGEND_SWEEPS take their final style — a thin line
-           without markers or power, out of the legend — and move to the old layer, which
-           only ever grows on top (so the many old sweeps are never redrawn as a sweep
-           ends; only the few recent ones are);
-        3. the newest sweeps keep their markers up to MARKER_BUDGET markers per plot;
-        4. only the newest POWER_SWEEPS show their power curve;
-        5. the empty items the next sweep will take are made.
+        2. sweeps beyond the newest LEGEND_SWEEPS leave the legend,
+        3. then take their final style — a thin line without markers or power — and move
+           to the old layer, which only ever grows on top (so the many old sweeps are never
+           redrawn as a sweep ends; only the few recent ones are);
+        4. the newest sweeps keep their markers up to MARKER_BUDGET markers per plot;
+        5. only the newest POWER_SWEEPS show their power curve;
+        6. the empty items (and legend label) the next sweep will take are made.
         """
         self.tidy_pending = False
         ordered = list(self.items.values())
@@ -1171,12 +1171,16 @@ class CurvePlot(TimedPlotWidget):
                     self._fit_layer.add(items.mpp)
             self.tidy_pending = True
             return
+        unnamed = [i for i in ordered[:-LEGEND_SWEEPS] if i.in_legend]
+        if unnamed:
+            for items in unnamed:
+                self.legend.removeItem(items.current)
+                items.in_legend = False
+            self.tidy_pending = True
+            return
         retire = [i for i in ordered[:-LEGEND_SWEEPS] if not i.old]
         if retire:
             for items in retire:
-                if items.in_legend:
-                    self.legend.removeItem(items.current)
-                    items.in_legend = False
                 items.current.setSymbol(None)
                 items.markers = False
                 # thin: old sweeps step back behind the newest ones
@@ -1212,7 +1216,10 @@ class CurvePlot(TimedPlotWidget):
         if hidden:
             self.tidy_pending = True
             return
-        self.tidy_pending = self._make_blanks() or self.legend.make_spare()
+        made = self.legend.make_spare()
+        while self._make_blanks():
+            made = True
+        self.tidy_pending = made
 
     def update_sweep(self, trace: SweepTrace) -> None:
         items = self.items.get(trace.uid)
