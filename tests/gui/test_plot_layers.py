@@ -361,3 +361,23 @@ def test_a_noisy_sweep_does_not_move_the_range_at_every_new_highest_point(qtbot)
     counts = _range_changes_during(bench, events, 20)
     # the view grows when a point leaves it: a handful of times, not at each new maximum
     assert sum(counts[1:]) <= 3, counts
+
+
+def test_earlier_sweeps_laid_over_look_as_pyqtgraph_draws_them(qtbot):
+    from tracer.gui.plots import OverlayCurve
+
+    bench = Bench(qtbot)
+    bench.feed([_run_started()])
+    bench.feed(list(_sweep_events(0, 100)), frame_points=50)
+    bench.settle()
+    plot = bench.area.light_plot
+    v = np.linspace(-0.1, 0.62, 80)
+    curves = [OverlayCurve(key=f"old-{k}", label=f"earlier {k}", light=True,
+                           direction="forward" if k else "reverse", voltage_v=v,
+                           current_a=(0.036 - 0.002 * k) - 1e-12 * np.expm1(v / 0.0257),
+                           area_cm2=1.0) for k in range(2)]
+    assert plot.set_overlays(curves, density=True) == []
+    QApplication.processEvents()
+    assert plot._overlay_layer.items == list(plot.overlay_items.values())
+    differing, ink = _difference(_shown(plot), _plain(plot))
+    assert ink > 5000 and differing <= 0.002 * ink, (differing, ink)
