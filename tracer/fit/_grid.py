@@ -12,7 +12,8 @@ The grid is searched twice, the second time with every point's equation residual
 divided by 1 + Rs*dD/dVd (D the diode-plus-shunt current, dD/dVd from the first pass's
 best trial), which turns it into the current residual to first order. A coarse grid
 finds the basins; each competitive local minimum is
-then refined by a few zoomed grids around it (weights from the current best trial).
+then refined by a few zoomed grids around it (weights from the current best trial),
+which shrink around an interior minimum and move, growing, after one on their edge.
 For two diodes, trials where a diode carries no current are set aside (they form a
 flat floor of single-diode fits) and the customary n1 = 1, n2 = 2 start is always
 added. A long curve is screened on SCREEN_POINTS of its points, spread evenly over it;
@@ -38,6 +39,9 @@ ZOOM_POINTS = {1: 5, 2: 5}
 ZOOM_LEVELS = 2
 ZOOM_MAX_STEPS = 8
 ZOOM_SHRINK = 3.0
+#: A box whose best trial lies on its edge moves there and grows by this factor, so that
+#: a start far from its basin's minimum gets there in a few steps (pattern search).
+ZOOM_GROW = 2.0
 #: A diode carrying less than this fraction of the largest current is "absent".
 DEGENERATE_FRACTION = 1e-6
 #: The customary double-diode idealities, always tried as a start.
@@ -379,9 +383,9 @@ def _refine(red: _Reduced, starts):
     solution dict); returns the best trial (a, rs, solution dict) of each.
 
     Each zoom is a small tensor grid (ZOOM_POINTS values of each a_k and of Rs) around
-    the current best; the box shrinks around an interior minimum and moves, unshrunk,
-    when the minimum lies on its edge. The starts advance together: one step of all of
-    them is one batch of trials (each start's rows weighted by its own best trial).
+    the current best; the box shrinks around an interior minimum and moves, grown by
+    ZOOM_GROW, when the minimum lies on its edge. The starts advance together: one step
+    of all of them is one batch of trials (each start's rows weighted by its own best trial).
     """
     m = red.n_diodes
     pts = ZOOM_POINTS[m]
@@ -423,6 +427,9 @@ def _refine(red: _Reduced, starts):
                 z.la_step /= ZOOM_SHRINK
                 z.r_step /= ZOOM_SHRINK
                 z.shrinks += 1
+            else:
+                z.la_step *= ZOOM_GROW
+                z.r_step *= ZOOM_GROW
             z.weights = red.first_order_weights(z.a_c, z.rs_c, z.best[2]["i0"],
                                                 z.best[2]["g"])
     return [z.best for z in zooms]
@@ -483,3 +490,4 @@ def grid_search(voltage_v, current_a, weights, ns_vt_v, *, n_diodes, dark, rs_ma
                                   tuple(map(float, a_k)), rs_k, float(s["g"]), score))
     out.sort(key=lambda s: s.score)
     return out
+
