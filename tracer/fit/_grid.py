@@ -13,7 +13,8 @@ divided by 1 + Rs*dD/dVd (D the diode-plus-shunt current, dD/dVd from the first 
 best trial), which turns it into the current residual to first order. A coarse grid
 finds the basins; each competitive local minimum is
 then refined by a few zoomed grids around it (weights from the current best trial),
-which shrink around an interior minimum and move, growing, after one on their edge.
+which shrink around an interior minimum and move (regrowing up to their first size)
+after one on their edge.
 For two diodes, trials where a diode carries no current are set aside (they form a
 flat floor of single-diode fits) and the customary n1 = 1, n2 = 2 start is always
 added. A long curve is screened on SCREEN_POINTS of its points, spread evenly over it;
@@ -39,8 +40,9 @@ ZOOM_POINTS = {1: 5, 2: 5}
 ZOOM_LEVELS = 2
 ZOOM_MAX_STEPS = 8
 ZOOM_SHRINK = 3.0
-#: A box whose best trial lies on its edge moves there and grows by this factor, so that
-#: a start far from its basin's minimum gets there in a few steps (pattern search).
+#: A box whose best trial lies on its edge moves there and grows by this factor, never
+#: past its first size: a box that had shrunk regains its reach in a step or two instead
+#: of creeping along a valley at its smallest size.
 ZOOM_GROW = 2.0
 #: A diode carrying less than this fraction of the largest current is "absent".
 DEGENERATE_FRACTION = 1e-6
@@ -367,6 +369,7 @@ class _Zoom:
     def __init__(self, red: _Reduced, a0, rs0, log_step, rs_step, start):
         self.a_c, self.rs_c = np.array(a0, dtype=float), float(rs0)
         self.la_step, self.r_step = log_step, rs_step
+        self.la_step0, self.r_step0 = log_step, rs_step      # never grown past these
         self.weights = red.first_order_weights(self.a_c, self.rs_c, start["i0"], start["g"])
         self.best = None
         self.shrinks = 0
@@ -384,8 +387,9 @@ def _refine(red: _Reduced, starts):
 
     Each zoom is a small tensor grid (ZOOM_POINTS values of each a_k and of Rs) around
     the current best; the box shrinks around an interior minimum and moves, grown by
-    ZOOM_GROW, when the minimum lies on its edge. The starts advance together: one step
-    of all of them is one batch of trials (each start's rows weighted by its own best trial).
+    ZOOM_GROW up to its first size, when the minimum lies on its edge. The starts
+    advance together: one step of all of them is one batch of trials (each start's rows
+    weighted by its own best trial).
     """
     m = red.n_diodes
     pts = ZOOM_POINTS[m]
@@ -428,8 +432,8 @@ def _refine(red: _Reduced, starts):
                 z.r_step /= ZOOM_SHRINK
                 z.shrinks += 1
             else:
-                z.la_step *= ZOOM_GROW
-                z.r_step *= ZOOM_GROW
+                z.la_step = min(z.la_step * ZOOM_GROW, z.la_step0)
+                z.r_step = min(z.r_step * ZOOM_GROW, z.r_step0)
             z.weights = red.first_order_weights(z.a_c, z.rs_c, z.best[2]["i0"],
                                                 z.best[2]["g"])
     return [z.best for z in zooms]
