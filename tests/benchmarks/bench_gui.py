@@ -270,6 +270,8 @@ def run(quick: bool = False, points: int | None = None) -> dict[str, float]:
             figures[f"{prefix}{tag}_median_frame_cpu_ms"] = s.get("median_frame_cpu_ms", float("nan"))
             figures[f"{prefix}{tag}_worst_frame_cpu_ms"] = s.get("worst_frame_cpu_ms", float("nan"))
             figures[f"{prefix}{tag}_points_shown"] = s["points"]
+            figures[f"{prefix}{tag}_frames_points_out_of_view"] = s.get(
+                "frames_points_out_of_view", 0.0)
             for k, (work, paint) in enumerate(s["worst_parts"]):
                 figures[f"{prefix}{tag}_worst{k + 1}_work_ms"] = work
                 figures[f"{prefix}{tag}_worst{k + 1}_paint_ms"] = paint
@@ -315,6 +317,11 @@ def main(argv: list[str] | None = None) -> int:
                       f"worst {f[p + t + '_worst_frame_cpu_ms']:.1f} ms"
                       for t, name in (("_long_sweep", "long"), ("_400pt_sweeps", "sweeps"))
                       for p, who in (("gui", "ours"), ("gui_naive", "naive"))))
+    print("frames whose new points all lay outside the view (a sweep past Voc runs off the "
+          "bottom: nothing to paint, no latency counted): " + ", ".join(
+              f"{who} {name} {f[p + t + '_frames_points_out_of_view']:.0f}"
+              for t, name in (("_long_sweep", "long"), ("_400pt_sweeps", "sweeps"))
+              for p, who in (("gui", "ours"), ("gui_naive", "naive"))))
     print("slowest frames of ours (redraw work + paint): " + "; ".join(
         f"{f.get(f'gui{tag}_worst{k}_work_ms', 0):.0f}+{f.get(f'gui{tag}_worst{k}_paint_ms', 0):.0f}"
         for tag in ("_long_sweep", "_400pt_sweeps") for k in (1, 2, 3)) + " ms")

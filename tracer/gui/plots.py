@@ -51,12 +51,19 @@ class FrameStats:
         self.parts_ms: list[tuple[float, float]] = []    # (redraw work, paint) per frame
         self.latencies_ms: list[float] = []
         self.cpu_frames_ms: list[float] = []   # the same frames in GUI-thread CPU time
+        self.frames_points_out_of_view = 0
         self._open_work_ms: float | None = None
         self._open_paint_ms = 0.0
         self._open_cpu_ms = 0.0
         self._pending_point_time: float | None = None
 
-    def frame(self, work_ms: float, oldest_point_time: float | None, cpu_ms: float = 0.0) -> None:
+    def frame(self, work_ms: float, oldest_point_time: float | None, cpu_ms: float = 0.0,
+              points_in_view: bool = True) -> None:
+        """A redraw. Points that all lie outside the view (a sweep past Voc runs off the
+        bottom) are not painted, so they have no point-to-paint delay: counted apart."""
+        if oldest_point_time is not None and not points_in_view:
+            self.frames_points_out_of_view += 1
+            oldest_point_time = None
         self._close()
         self._open_work_ms = work_ms
         self._open_paint_ms = 0.0
@@ -87,7 +94,8 @@ class FrameStats:
 
     def summary(self) -> dict[str, float]:
         self._close()
-        out: dict[str, float] = {"frames": float(len(self.frames_ms))}
+        out: dict[str, float] = {"frames": float(len(self.frames_ms)),
+                                 "frames_points_out_of_view": float(self.frames_points_out_of_view)}
         if self.frames_ms:
             f = np.asarray(self.frames_ms)
             out.update(median_frame_ms=float(np.median(f)), worst_frame_ms=float(f.max()),
@@ -105,6 +113,7 @@ class FrameStats:
         return sorted(self.parts_ms, key=sum, reverse=True)[:n]
 
     def reset(self) -> None:
+        self.frames_points_out_of_view = 0
         self.cpu_frames_ms.clear()
         self.parts_ms.clear()
         self.frames_ms.clear()
@@ -373,6 +382,7 @@ class FrozenLayer(pg.GraphicsObject):
         self._scratch_from: dict[QGraphicsItem, int] = {}
         self._dash_done: dict[QGraphicsItem, float] = {}   # pixels of line drawn
         self._watching: dict[QGraphicsItem, object] = {}     # item -> its visibility slot
+        self.grown_rect: QRectF | None = QRectF()    # see growth_in_view; None: all of it
 
     # ------------------------------------------------------------------ frames
     @classmethod
@@ -482,6 +492,7 @@ class FrozenLayer(pg.GraphicsObject):
         n = len(item.xData)
         start = max(self._points_drawn.get(item, 0) - 1, 0)
         if n - start < 1 or self._transform is None:
+            self.grown_rect = None
             self.update()
             return
         self._prepare_scratch(scratch, item, start)
@@ -493,7 +504,18 @@ class FrozenLayer(pg.GraphicsObject):
         if px is not None and py is not None:      # a few pixels more: pens and markers
             mx, my = 4 * px.length(), 4 * py.length()
             rect.adjust(-mx, -my, mx, my)
+        if self.grown_rect is not None:
+            self.grown_rect = self.grown_rect.united(rect)
         self.update(rect)
+
+    def growth_in_view(self) -> bool:
+        """Whether the points grown since :meth:`new_frame` lie in the view (so that the
+        paint that follows shows them); a sweep past Voc runs off the bottom, by design."""
+        rect = self.grown_rect
+        if rect is None:
+            return True
+        view = self.viewRect()
+        return not rect.isEmpty() and (view is None or rect.intersects(view))
 
     def invalidate(self, *args, repaint: bool = True) -> None:
         self._stale = True
@@ -1411,6 +1433,7 @@ class PlotArea(QWidget):
         layout.setContentsMargins(0, 0, 0, 0)
         layout.addWidget(self.tabs)
         self.density = False
+        self.points_in_view = True
         self.set_units(False)
 
     def plots(self) -> tuple[CurvePlot, CurvePlot, TrackingPlot]:
@@ -1429,8 +1452,13 @@ class PlotArea(QWidget):
         return self.light_plot if trace.light else self.dark_plot
 
     def redraw(self, model: RunModel, changes) -> None:
-        """Apply ``changes`` (from :meth:`RunModel.take_changes`)."""
+        """Apply ``changes`` (from :meth:`RunModel.take_changes`). ``points_in_view`` then
+        says whether the new points (if any) lie in view, i.e. will be painted."""
         FrozenLayer.new_frame()
+        live = [layer for p in self.plots() for layer in p._live_layers + p._live_power_layers]
+        for layer in live:
+            layer.grown_rect = QRectF()
+        ranges = [p.getPlotItem().getViewBox().viewRange() for p in self.plots()]
         if changes.new_run:
             for p in self.plots():
                 p.clear_sweeps()
@@ -1460,3 +1488,6 @@ class PlotArea(QWidget):
             self.dark_plot.running_sweep = bool(running and not current.light)
             self.light_plot.fit_view()
             self.dark_plot.fit_view()
+        moved = ranges != [p.getPlotItem().getViewBox().viewRange() for p in self.plots()]
+        self.points_in_view = (changes.new_run or bool(changes.added) or moved
+                               or any(layer.growth_in_view() for layer in live))

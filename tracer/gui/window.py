@@ -166,7 +166,7 @@ class BenchWindow(QMainWindow):
         if changes.status:
             self._update_status()
         self.stats.frame((time.perf_counter() - t0) * 1e3, changes.oldest_point_time,
-                         (time.thread_time() - c0) * 1e3)
+                         (time.thread_time() - c0) * 1e3, self.plots.points_in_view)
         fin = self.model.finished
         if fin is not None and self._finished_shown != fin.run_uid:
             self._finished_shown = fin.run_uid
