@@ -381,3 +381,29 @@ def test_earlier_sweeps_laid_over_look_as_pyqtgraph_draws_them(qtbot):
     assert plot._overlay_layer.items == list(plot.overlay_items.values())
     differing, ink = _difference(_shown(plot), _plain(plot))
     assert ink > 5000 and differing <= 0.002 * ink, (differing, ink)
+
+
+def test_points_below_the_view_are_not_charged_a_paint_delay(qtbot):
+    bench = Bench(qtbot)
+    bench.feed([_run_started()])
+    events = list(_sweep_events(0, 400, reverse=False))[:-1]
+    # up to 0.62 V: the curve is in view; the last points (past ~0.636 V, the demo curve's
+    # current below -40 % of the top) run off the bottom of the plot, by design
+    bench.feed(events[:1 + 385], frame_points=385)
+    assert bench.area.points_in_view
+    bench.feed(events[1 + 385:1 + 394], frame_points=1000)    # the view's bottom grows once
+    (_, _), (bottom, _) = bench.area.light_plot.getPlotItem().getViewBox().viewRange()
+    last = events[1 + 394:]
+    assert all(-p.current_a * 1e3 < bottom for p in last)     # generator mA/cm2, 1 cm2
+    bench.feed(last, frame_points=1000)
+    assert not bench.area.points_in_view
+
+    stats = FrameStats()
+    now = time.time()
+    stats.frame(1.0, now - 0.05, points_in_view=False)
+    stats.paint(1.0)
+    stats.frame(1.0, now - 0.04, points_in_view=True)
+    stats.paint(1.0)
+    summary = stats.summary()
+    assert summary["frames_points_out_of_view"] == 1 and len(stats.latencies_ms) == 1
+    assert 35 <= stats.latencies_ms[0] < 1000
