@@ -130,14 +130,11 @@ class ProjectedProblem:
         return r, jac
 
 
-def minimise(problem: ProjectedProblem, alpha0, lb, ub, scale, *, max_iter=50, tol=1e-12,
-             ftol=None):
-    """Levenberg-Marquardt over alpha; returns (alpha, beta). ``tol`` is the step (and,
-    unless ``ftol`` is given, the relative cost-change) tolerance. With two diodes the
+def minimise(problem: ProjectedProblem, alpha0, lb, ub, scale, *, max_iter=50, tol=1e-12):
+    """Levenberg-Marquardt over alpha; returns (alpha, beta). With two diodes the
     damping follows the gain ratio (the a_k of a two-diode fit lie in flat valleys)."""
     alpha = bounded_lm(lambda x: problem.solve(x)[:2], alpha0, lb, ub, scale,
-                       max_iter=max_iter, ftol=tol if ftol is None else ftol, xtol=tol,
-                       gain_damping=problem.m == 2)
+                       max_iter=max_iter, ftol=tol, xtol=tol, gain_damping=problem.m == 2)
     if problem._alpha_key != np.asarray(alpha, dtype=float).tobytes():
         problem.solve(alpha)       # the last evaluation was a rejected trial step
     return alpha, problem.beta

@@ -68,9 +68,6 @@ _STAT_FTOL = 1e-6
 #: standard uncertainties of the optimum); the exact polish, to _STAT_FTOL, follows. A
 #: last round that confirms what the polish confirms anyway is saved.
 _SURROGATE_STAT_FTOL = 1e-3
-#: Each round's inner minimisation stops once a step lowers the linearised sum of squares
-#: by less than 1e-4 of the residual variance: finer than the rounds can use.
-_INNER_STAT_FTOL = 1e-4
 _MAX_NFEV = {1: 100, 2: 30}
 #: Relative size of a singular value of the scaled Jacobian treated as zero.
 _SINGULAR_RTOL = 1e-11
@@ -312,7 +309,7 @@ def _sort_diodes(layout: Layout, theta, cov):
 
 
 def _projected_step(problem: _Problem, layout: Layout, theta, eval_current, weights, target,
-                    lb, ub, x_scale, ftol=None):
+                    lb, ub, x_scale):
     """Minimise |weights * F(theta; V, eval_current) - target| by variable projection
     (linear parameters solved exactly, Levenberg-Marquardt on a_k and Rs)."""
     nonlinear = layout.a_indices() + [layout.rs_index]
@@ -320,7 +317,7 @@ def _projected_step(problem: _Problem, layout: Layout, theta, eval_current, weig
                                   layout.n_diodes, layout.dark)
     alpha, beta = _varpro.minimise(vp, theta[nonlinear], lb[nonlinear], ub[nonlinear],
                                    x_scale[nonlinear], max_iter=_INNER_MAX_ITER,
-                                   tol=_INNER_TOL, ftol=ftol)
+                                   tol=_INNER_TOL)
     off = layout.offset
     i0 = beta[off:off + layout.n_diodes]
     with np.errstate(divide="ignore"):
@@ -358,7 +355,7 @@ def _surrogate_polish(problem: _Problem, objective: _Objective, theta0, lb, ub, 
 
         if problem.loss == "linear":
             proposal = _projected_step(problem, layout, theta, i_j, w, w * i_j - base,
-                                       lb, ub, x_scale, _ftol(objective, _INNER_STAT_FTOL))
+                                       lb, ub, x_scale)
         else:
             def fun_jac(t, i_j=i_j, w=w, base=base):
                 f, jac, _ = equation_terms(layout, t, v, i_j)
