@@ -821,7 +821,10 @@ class CurvePlot(TimedPlotWidget):
         margin below zero to just above the largest current, so the power-producing part
         fills the plot (points beyond, e.g. a compliance clamp past Voc, run off the bottom);
         the power axis is scaled so that its zero lines up with the current's zero.
-        Semilog plot: pyqtgraph's own automatic range."""
+        Semilog plot: the voltage span, |current| over at most six decades. While a sweep
+        runs the range only grows, in steps, when a point leaves the view; an evenly stepped
+        voltage sweep gets the span it will reach at once (:meth:`_planned_x`). A range
+        change redraws the axes and the layers, so it is kept rare."""
         vb = self.getPlotItem().getViewBox()
         if not self._auto_view:
             return
