@@ -287,7 +287,8 @@ class _DataItem(pg.PlotDataItem):
         if len(x) > 1 and width_px != 0.0:
             dx = float(x[-1] - x[0]) / (len(x) - 1)
             if dx != 0.0:
-                f = max(1.0, abs(view.width() / dx / (width_px * self.opts["autoDownsampleFactor"])))
+                per_px = width_px * self.opts["autoDownsampleFactor"]
+                f = max(1.0, abs(view.width() / dx / per_px))
                 if np.isfinite(f):
                     ds = int(f)
         return ds
