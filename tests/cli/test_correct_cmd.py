@@ -2,7 +2,7 @@
 
 Curves: the CEC CS5P-220M (pvlib's test fixture module, 96 cells) from pvlib
 ``calcparams_desoto`` + ``v_from_i``/``i_from_v``; the STC truth is pvlib ``singlediode`` at
-1000 W/m2, 25 C. Procedure 1 coefficients of this module of the size the reference notes
+1000 W/m2, 25 C. Procedure 1 coefficients of this module of the size published with pvlib's IEC 60891 estimators
 report (1.5: Rs 1.284 ohm, kappa 0.0046 ohm/K); tolerances as in
 tests/stc/test_translation_pvlib.py (procedure 1: Pmax 0.3 %; model: 0.05 %; procedure 3
 interpolating: 0.2 %).

@@ -58,7 +58,7 @@ def test_figures_efficiency_and_stc_of_a_light_curve():
 
 
 def test_irradiance_from_the_reference_cell_readings():
-    # G = 1000 * Isc_rc / (Isc_cal * (1 + alpha_rc*(T_rc - 25)))  (reference notes 2.1)
+    # G = 1000 * Isc_rc / (Isc_cal * (1 + alpha_rc*(T_rc - 25)))
     ctx = SweepContext(reference_isc_readings_a=[0.0959, 0.0961], reference_temperature_c=35.0)
     r = analyze_sweep(V, CELL.current(V), dark=False, temperature_c=25.0, settings=SETTINGS,
                       context=ctx)

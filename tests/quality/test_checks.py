@@ -16,14 +16,14 @@ from tracer.model import SingleDiode
 
 
 def test_temporal_instability_formula():
-    # IEC 60904-9 form (reference notes 2.5): (Gmax - Gmin)/(Gmax + Gmin)
+    # IEC 60904-9 form: (Gmax - Gmin)/(Gmax + Gmin)
     assert temporal_instability([970.0, 1000.0, 1030.0]) == pytest.approx(60.0 / 2000.0)
     with pytest.raises(ValueError):
         temporal_instability([1000.0])
 
 
 def test_instability_limits_are_the_reference_table():
-    # reference notes 2.5 table, LTI column (from memory there; A+ unconfirmed)
+    # IEC 60904-9 table, LTI column (from memory; A+ unconfirmed)
     assert {k: v[0] for k, v in INSTABILITY_CLASS_LIMITS.items()} == {
         "A+": 0.01, "A": 0.02, "B": 0.05, "C": 0.10}
     assert "unconfirmed" in INSTABILITY_CLASS_LIMITS["A+"][1]

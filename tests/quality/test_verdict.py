@@ -1,7 +1,7 @@
 """Keep-or-re-measure verdict on synthetic sweeps (tracer.model curves, pvlib for numbers).
 
 The cell: a 2 cm x 2 cm c-Si lab cell, Isc 0.16 A (Jsc 40 mA/cm2) and Voc ~0.65 V (typical
-values, reference notes 6, from memory), n = 1.1, Rs = 0.125 ohm (0.5 ohm cm2),
+values, from memory), n = 1.1, Rs = 0.125 ohm (0.5 ohm cm2),
 Rsh = 2500 ohm (1e4 ohm cm2), measured on a bench whose contacts usually give 0.15 ohm.
 SMU noise 10 uA (common practice for such a range). Invented numbers stay in this file.
 """

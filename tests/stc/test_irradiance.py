@@ -8,7 +8,7 @@ from tracer.stc import effective_irradiance, irradiance_from_reference_cell
 
 
 def _notes_formula(isc, cv, alpha_rel, t_rc):
-    # reference notes 2.1 (standard practice, marked from memory there):
+    # IEC 60904-2 / IEC 60904-1 practice (from memory):
     # G1 = G_STC*Isc_RC / (CV_RC*(1 + alpha_rel_RC*(T_RC - 25)))
     return 1000.0 * isc / (cv * (1.0 + alpha_rel * (t_rc - 25.0)))
 
@@ -30,7 +30,7 @@ def test_matches_the_reference_formula_point_by_point():
 
 
 def test_effective_irradiance_applies_the_mismatch_factor():
-    # ASTM E973 5.2.2 / IEC 60904-7 (reference notes 2.4): G_eff = G1*SMM
+    # ASTM E973 5.2.2 / IEC 60904-7: G_eff = G1*SMM
     assert effective_irradiance(800.0, 1.02) == pytest.approx(816.0, rel=1e-15)
 
 

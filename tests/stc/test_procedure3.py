@@ -1,4 +1,4 @@
-"""IEC 60891 procedure 3 (interpolation), in the form given by the reference notes 1.3.
+"""IEC 60891 procedure 3 (interpolation), in its usual interpolation form (from memory, not confirmed against the standard text).
 
 That form is marked there as from memory (not confirmed against the standard text); these
 tests check the code does exactly that form: X3 = X1 + a*(X2 - X1) for G, T, I, V with

@@ -20,7 +20,7 @@ def test_shipped_am15g_table_equals_pvlib_astm_g173():
 
 
 def test_shipped_am15g_integral():
-    # ASTM G173 global integrates to about 1000.37 W/m2 (pvlib docs, reference notes 2.3)
+    # ASTM G173 global integrates to about 1000.37 W/m2 (pvlib docs)
     wavelength, irradiance = reference_spectrum_am15g()
     assert np.trapezoid(irradiance, wavelength) == pytest.approx(1000.37, abs=0.01)
 
@@ -44,7 +44,7 @@ def _box(lo, hi, level=1.0, span=(250.0, 1300.0), eps=1e-6):
 
 
 def test_mismatch_is_one_when_test_spectrum_is_the_reference():
-    # IEC 60904-7 (reference notes 2.4): SMM = 1 for identical relative spectra
+    # IEC 60904-7: SMM = 1 for identical relative spectra
     w, e = reference_spectrum_am15g()
     sr_dut = _example_sr()
     sr_rc = _box(300.0, 1100.0)                 # a different (filtered) reference cell
@@ -55,7 +55,7 @@ def test_mismatch_is_one_when_test_spectrum_is_the_reference():
 
 
 def test_mismatch_is_one_for_identical_responsivities():
-    # IEC 60904-7 (reference notes 2.4): SMM = 1 for identical relative responsivities
+    # IEC 60904-7: SMM = 1 for identical relative responsivities
     w, e = reference_spectrum_am15g()
     sr = _example_sr()
     tilted = (w, e * np.linspace(1.5, 0.5, w.size))
@@ -65,7 +65,7 @@ def test_mismatch_is_one_for_identical_responsivities():
 
 
 def test_mismatch_box_spectra_by_hand():
-    # Hand computation with the IEC 60904-7 formula (reference notes 2.4):
+    # Hand computation with the IEC 60904-7 formula:
     # E_ref = 1 on 400-800 nm; E_test = 1 on 400-600 and 2 on 600-800 nm;
     # s_rc = 1 on 400-800 nm; s_dut = 1 on 600-800 nm.
     # ∫E_ref s_rc = 400, ∫E_test s_dut = 400, ∫E_test s_rc = 600, ∫E_ref s_dut = 200
@@ -104,7 +104,7 @@ def test_mismatch_matches_pvlib_for_a_broadband_reference():
 
 
 def test_mismatch_refuses_a_test_spectrum_that_does_not_cover_the_responsivity():
-    # IEC 60904-7 (reference notes 2.4): E_meas must cover both sensitivity ranges
+    # IEC 60904-7: E_meas must cover both sensitivity ranges
     w, e = reference_spectrum_am15g()
     keep = (w >= 400) & (w <= 1000)
     with pytest.raises(ValueError, match="does not cover"):

@@ -20,7 +20,7 @@ from tracer.stc import (
 from tracer.stc.uncertainty import BudgetEntry, UncertaintyBudget, rectangular
 from stc_pvlib_oracle import cec_modules, cs5p  # noqa: F401  (pytest fixtures)
 
-# procedure 1 coefficients of the CS5P-220M of the size the reference notes report (1.5)
+# procedure 1 coefficients of the CS5P-220M of the size published with pvlib's IEC 60891 estimators
 P1 = Procedure1Coefficients(alpha_a_per_k=0.004526, beta_v_per_k=-0.2420,
                             series_resistance_ohm=1.268, kappa_ohm_per_k=0.00433)
 U = UncertaintyInputs(reference_cell_calibration_rel=0.004,   # PTB-level reference cell (notes 2.3)

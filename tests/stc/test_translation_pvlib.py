@@ -8,7 +8,7 @@ are determined from pvlib curves of the same module (irradiance series 600-1100 
 Tolerances and why:
 - diode model: 0.05 % in Pmax/Isc/Voc and 0.05 % of Voc on the curve. The De Soto relations
   are the ones pvlib uses to make the data, so only fit and solver errors remain.
-- procedure 1: Pmax 0.3 %, Isc 0.6 %, Voc 1.2 %, curve 1.2 % of Voc. The reference notes
+- procedure 1: Pmax 0.3 %, Isc 0.6 %, Voc 1.2 %, curve 1.2 % of Voc. Published comparisons
   (1.5 table, [D]) show procedure 1 adds 0.0-0.11 % Pmax error on this model class; Isc and Voc
   move more because beta and alpha are taken at 1000 W/m2 while the model's coefficients
   depend on G (pvlib sapm: Bvoc(E) = Bvoco + Mbvoc(1 - E)); Marion et al. 2004 report RMS
@@ -18,7 +18,7 @@ Tolerances and why:
   beta multiplies the measured Voc1, so the error grows with |dT|*(Voc_STC - Voc1) — a
   property of the published equation, not of the code (Xu et al. 2023 found procedure 2 the
   weaker one).
-- procedure 3 (interpolating): Pmax 0.2 %, Isc and Voc 0.1 %: reference notes 1.6, "good
+- procedure 3 (interpolating): Pmax 0.2 %, Isc and Voc 0.1 %: "good
   interpolating" (Xu et al. 2023; Piliougine et al. 2024 "accurate results").
 """
 from __future__ import annotations

@@ -24,15 +24,15 @@ __all__ = [
 ]
 
 # IEC 60904-9 long-term temporal instability limits (instability over the acquisition of a
-# whole I-V curve), as fractions. Values from the reference notes (2.5), table marked [M]:
+# whole I-V curve), as fractions. Values from memory (table [M]):
 # A/B/C corroborated by simulator manufacturers' pages; A+ from memory only.
 INSTABILITY_CLASS_LIMITS = {
     "A+": (0.01, "IEC 60904-9 Ed.3 class A+ long-term instability <= 1 % (from memory, unconfirmed)"),
-    "A": (0.02, "IEC 60904-9 class A long-term instability <= 2 % (reference notes; from memory, "
+    "A": (0.02, "IEC 60904-9 class A long-term instability <= 2 % (from memory, "
                 "corroborated by manufacturers' pages)"),
-    "B": (0.05, "IEC 60904-9 class B long-term instability <= 5 % (reference notes; from memory, "
+    "B": (0.05, "IEC 60904-9 class B long-term instability <= 5 % (from memory, "
                 "corroborated by manufacturers' pages)"),
-    "C": (0.10, "IEC 60904-9 class C long-term instability <= 10 % (reference notes; from memory, "
+    "C": (0.10, "IEC 60904-9 class C long-term instability <= 10 % (from memory, "
                 "corroborated by manufacturers' pages)"),
 }
 
@@ -55,7 +55,7 @@ class HysteresisIndices:
     """Indices of a forward (Isc->Voc, toward +V) / reverse (Voc->Isc) pair; RS - FS over RS.
 
     ``pmax``: (Pmax_RS - Pmax_FS)/Pmax_RS (the "HI_PCE" form; Habisreutinger, Noel & Snaith,
-    ACS Energy Lett. 3 (2018) 2472 — formula from memory per the reference notes).
+    ACS Energy Lett. 3 (2018) 2472 — formula from memory).
     ``area``: (∫I_RS dV - ∫I_FS dV)/∫I_RS dV over 0...Voc_RS (formula from memory, ibid.).
     Positive: reverse scan better ("normal" hysteresis); negative: inverted.
     """
@@ -93,7 +93,7 @@ def hysteresis_indices(forward_v, forward_i, reverse_v, reverse_i) -> Hysteresis
 
 def temporal_instability(irradiance_w_m2) -> float:
     """(G_max - G_min)/(G_max + G_min) of the readings, as a fraction (IEC 60904-9 form,
-    IEC terms database per the reference notes 2.5). Raises ValueError."""
+    IEC terms database; from memory). Raises ValueError."""
     g = np.asarray(irradiance_w_m2, dtype=float).ravel()
     g = g[np.isfinite(g)]
     if g.size < 2:

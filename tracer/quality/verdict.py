@@ -30,18 +30,18 @@ code                      fails when                                            
 ========================  ==========================================================  =========
 
 [1] common practice: larger than the ~1.5 % Pmax uncertainty quoted by calibration labs
-    (Fraunhofer ISE CalLab, reference notes 2.1), so not measurement scatter.
+    (Fraunhofer ISE CalLab, from memory), so not measurement scatter.
 [2] IEC 60904-9 temporal-instability class the bench claims (limits in
     :data:`tracer.quality.checks.INSTABILITY_CLASS_LIMITS`, from memory as marked there).
-[3] IEC 60904-1: direct STC measurement only at 25 +- 2 C (from memory, reference notes 2.1).
-[4] IEC 60904-1 temperature accuracy +-1 C (from memory, reference notes 2.1); common practice.
+[3] IEC 60904-1: direct STC measurement only at 25 +- 2 C (from memory).
+[4] IEC 60904-1 temperature accuracy +-1 C (from memory); common practice.
 [5] common practice. At open circuit no current flows in the leads, so force and sense
     must read the same voltage; a difference means a sense contact is open or dirty.
 [6] from memory: with Green's empirical expression FF = FF0*(1 - (voc+0.7)/voc*FF0/rsh)
     (M. A. Green, Solar Cells, 1982) rsh = 10 costs about 8 % of FF; threshold common practice.
 [7] Durbin & Watson (1950/51): d near 2 without autocorrelation, d < 1 a common-practice
     alarm; Wald-Wolfowitz runs test one-sided z < -3.29 (p < 0.0005); the RMSE floor is the
-    IEC 60904-1 Ed.2 current accuracy of 0.2 % of Isc (from memory, reference notes 2.1), so a
+    IEC 60904-1 Ed.2 current accuracy of 0.2 % of Isc (from memory), so a
     structured misfit smaller than the meter's accuracy is not a reason to re-measure.
     Dark curves: the same on residuals relative to |I|, with a 2 % floor (common practice).
 [8] ASTM E1036 as in pvlib ``ivtools.utils.astm_e1036``: 3 points for each axis line,

@@ -1,6 +1,6 @@
 """Correction coefficients for IEC 60891 procedures 1 and 2, determined from sets of curves.
 
-Methods as summarised in the reference notes (1.5), after IEC 60891 Ed.2 clauses 5-7 and
+Methods after IEC 60891 Ed.2 clauses 5-7 and
 Sandia PV_LIB ``pvl_est_Rs_IEC60891_1/2`` and ``pvl_est_kappa_IEC60891_1`` (Hansen & King,
 45th IEEE PVSC 2018):
 

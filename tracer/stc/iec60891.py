@@ -1,6 +1,6 @@
 """IEC 60891 procedures 1 and 2: point-by-point translation of a measured I-V curve.
 
-Equations as given in the reference notes (1.1, 1.2), taken from Sandia PV_LIB for MATLAB
+Equations as implemented in Sandia PV_LIB for MATLAB
 (``pvl_translate_IV_curve_IEC60891_1.m`` / ``_2.m``), which cites IEC 60891 Ed.2 (2009).
 Subscript 1 = measured, 2 = target; currents in the generator convention.
 
@@ -21,7 +21,7 @@ an array (irradiance read per point, allowed since Ed.2); temperatures in C (onl
 differences enter).
 
 Procedure 4 (Ed.3, single curve, c-Si) is not implemented: its equations could not be
-confirmed against the standard text (reference notes 1.4).
+confirmed against the standard text.
 """
 from __future__ import annotations
 

@@ -5,7 +5,7 @@
 with ``Isc_rc_cal`` the reference cell's short-circuit current at its calibration
 irradiance ``G_cal`` (1000 W/m^2) and temperature ``T_cal`` (25 C), ``alpha_rel_rc`` its
 relative Isc temperature coefficient [1/K] and ``T_rc`` its temperature during the reading.
-The form is the usual one (reference notes 2.1, marked there as standard practice, from
+The form is the usual one (standard practice, from
 memory). Works point by point on arrays, so the irradiance during a sweep can be followed.
 
 The irradiance the device under test really sees, in the sense of its short-circuit current
@@ -45,7 +45,7 @@ def irradiance_from_reference_cell(reference_isc_a, *, calibration_isc_a: float,
 def effective_irradiance(irradiance_w_m2, mismatch_factor: float = 1.0):
     """Irradiance to translate with: reference-cell irradiance times the mismatch factor.
 
-    IEC 60904-7 / ASTM E973 5.2.2 (reference notes 2.4): ``Isc_STC = Isc * (G_STC/G) / SMM``,
+    IEC 60904-7 / ASTM E973 5.2.2: ``Isc_STC = Isc * (G_STC/G) / SMM``,
     i.e. the device behaves as if it received ``G_eff = G * SMM``.
     """
     if not np.isfinite(mismatch_factor) or mismatch_factor <= 0.0:

@@ -1,6 +1,6 @@
 """IEC 60891 procedure 3: interpolation between measured curves, no coefficients.
 
-Form as written in the reference notes (1.3), there marked *from memory, not confirmed
+Form written from memory, *not confirmed
 against the standard text*; this module implements exactly that form and says so in its
 results::
 
@@ -33,7 +33,7 @@ __all__ = ["InterpolationResult", "translate_procedure3"]
 
 # Tolerances for "the target lies on the line of two curves" and "three curves are
 # collinear": of the order of the reading uncertainties of irradiance and temperature
-# (IEC 60904-1 asks temperature to +-1 C, from memory per the reference notes). Common practice.
+# (IEC 60904-1 asks temperature to +-1 C, from memory). Common practice.
 IRRADIANCE_TOLERANCE_W_M2 = 10.0
 TEMPERATURE_TOLERANCE_K = 0.5
 _EPS = 1e-9

@@ -10,7 +10,7 @@ device [A/W, absolute or relative: the factor is a ratio of ratios]. SMM > 1 mea
 device gets relatively more of the test spectrum than the reference cell does; the device
 then behaves as if it received ``G * SMM`` (see :func:`tracer.stc.effective_irradiance`).
 
-As the 2019 edition asks (reference notes 2.4): each integral runs over the whole
+As the 2019 edition asks: each integral runs over the whole
 wavelength range of the spectrum it contains; the responsivities are interpolated onto the
 spectrum's wavelengths, never the reverse, and are zero outside their own tables; the test
 spectrum must cover the range where either responsivity is non-zero. Integrals by the

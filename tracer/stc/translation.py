@@ -228,7 +228,7 @@ def translate_to_stc(voltage_v, current_a, *, irradiance_w_m2: float, temperatur
                               c.temperature_c + dt) for c in companion_curves]
             r = translate_procedure3(curves, target_irradiance_w_m2=g2, target_temperature_c=t2)
             details = r.to_dict()
-            details["equations"] = ("IEC 60891 procedure 3 in the form of the reference notes "
+            details["equations"] = ("IEC 60891 procedure 3 in its usual interpolation form "
                                     "(from memory, not confirmed against the standard text)")
             return r.voltage_v, r.current_a, details
         if method == "diode_model":
