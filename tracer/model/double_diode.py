@@ -26,15 +26,14 @@ single-diode model.
 """
 from __future__ import annotations
 
-import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 
 from tracer.model import _network
-from tracer.model._checks import check_count, check_parameter, check_scalar_parameter
+from tracer.model._checks import check_parameter
+from tracer.model._base import CheckedParameters
 from tracer.model.figures import CurveFigures, figures_from_parts
-from tracer.model.thermal import thermal_voltage
 
 
 def _check_functional(photocurrent_a, saturation_current_1_a, saturation_current_2_a,
@@ -160,7 +159,7 @@ def double_diode_figures(photocurrent_a, saturation_current_1_a, saturation_curr
 
 
 @dataclass(frozen=True)
-class DoubleDiode:
+class DoubleDiode(CheckedParameters):
     r"""Double-diode equivalent circuit of a cell or of a module of cells in series.
 
     Immutable; derive a variant with :meth:`replace`, which validates again.
@@ -201,19 +200,7 @@ class DoubleDiode:
     temperature_k: float = 298.15
     cells_in_series: int = 1
 
-    def __post_init__(self):
-        for f in dataclasses.fields(self):
-            value = getattr(self, f.name)
-            if f.name == "cells_in_series":
-                checked = check_count(f.name, value, low=1)
-            else:
-                checked = check_scalar_parameter(f.name, value)
-            object.__setattr__(self, f.name, checked)
 
-    @property
-    def thermal_voltage_v(self) -> float:
-        """Thermal voltage :math:`V_t = kT/q` [V]."""
-        return thermal_voltage(self.temperature_k)
 
     @property
     def n_ns_vt_1_v(self) -> float:
@@ -225,13 +212,7 @@ class DoubleDiode:
         """Modified ideality factor of diode 2, :math:`n_2 N_s V_t` [V]."""
         return self.ideality_2 * self.cells_in_series * self.thermal_voltage_v
 
-    def parameters(self) -> dict:
-        """The constructor arguments as a dict (names as in the constructor)."""
-        return dataclasses.asdict(self)
 
-    def replace(self, **changes) -> "DoubleDiode":
-        """A copy with some parameters changed (validated again)."""
-        return dataclasses.replace(self, **changes)
 
     def _args(self):
         return (self.photocurrent_a, self.saturation_current_1_a, self.saturation_current_2_a,

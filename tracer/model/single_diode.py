@@ -41,16 +41,15 @@ doi:10.1016/j.solmat.2003.11.018.
 """
 from __future__ import annotations
 
-import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 
-from tracer.model._checks import check_count, check_parameter, check_scalar_parameter
+from tracer.model._checks import check_parameter
 from tracer.model._lambert import sd_current, sd_voltage
 from tracer.model._network import make_flat
+from tracer.model._base import CheckedParameters
 from tracer.model.figures import CurveFigures, figures_from_parts
-from tracer.model.thermal import thermal_voltage
 
 
 def _scalar_or_array(a):
@@ -167,7 +166,7 @@ def single_diode_figures(photocurrent_a, saturation_current_a, n_ns_vt_v,
 
 
 @dataclass(frozen=True)
-class SingleDiode:
+class SingleDiode(CheckedParameters):
     r"""Single-diode equivalent circuit of a cell or of a module of cells in series.
 
     Immutable; derive a variant with :meth:`replace` (or :func:`dataclasses.replace`),
@@ -205,32 +204,14 @@ class SingleDiode:
     temperature_k: float = 298.15
     cells_in_series: int = 1
 
-    def __post_init__(self):
-        for f in dataclasses.fields(self):
-            value = getattr(self, f.name)
-            if f.name == "cells_in_series":
-                checked = check_count(f.name, value, low=1)
-            else:
-                checked = check_scalar_parameter(f.name, value)
-            object.__setattr__(self, f.name, checked)
 
-    @property
-    def thermal_voltage_v(self) -> float:
-        """Thermal voltage :math:`V_t = kT/q` at :attr:`temperature_k` [V]."""
-        return thermal_voltage(self.temperature_k)
 
     @property
     def n_ns_vt_v(self) -> float:
         """Modified ideality factor :math:`a = n N_s V_t` [V]."""
         return self.ideality * self.cells_in_series * self.thermal_voltage_v
 
-    def parameters(self) -> dict:
-        """The constructor arguments as a dict (names as in the constructor)."""
-        return dataclasses.asdict(self)
 
-    def replace(self, **changes) -> "SingleDiode":
-        """A copy with some parameters changed (validated again)."""
-        return dataclasses.replace(self, **changes)
 
     def _args(self):
         return (self.photocurrent_a, self.saturation_current_a, self.n_ns_vt_v,
