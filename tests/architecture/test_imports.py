@@ -34,8 +34,7 @@ def _package_exists(dotted: str) -> bool:
 
 @pytest.mark.parametrize("package", PURE_PACKAGES)
 def test_pure_package_imports_without_gui_visa_or_yaml(package):
-    if not _package_exists(package):
-        pytest.skip(f"{package} does not exist yet")
+    assert _package_exists(package), f"{package} is a pure package of the layer table and must exist"
     script = textwrap.dedent(f"""
         import importlib, json, sys
         for name in {BLOCKED_FOR_PURE!r}:

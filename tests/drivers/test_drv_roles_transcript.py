@@ -1,4 +1,4 @@
-"""Transcript tests of the light source, thermometer and channel switch drivers."""
+"""Recorded-exchange tests of the light source, thermometer and channel switch drivers."""
 import pytest
 
 from drivers import (InstrumentCommandError, InstrumentError, InvalidSettingError,

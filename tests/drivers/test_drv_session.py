@@ -1,4 +1,4 @@
-"""Transcript tests of the SCPI session: exact messages, error mapping, recovery."""
+"""Recorded-exchange tests of the SCPI session: exact messages, error mapping, recovery."""
 import pytest
 
 from drivers import (InstrumentCommandError, InstrumentError, LinkLostError, OverRangeError,

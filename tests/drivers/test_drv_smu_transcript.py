@@ -1,4 +1,4 @@
-"""Transcript tests of the source-meter driver: the exact messages it sends, and what it
+"""Recorded-exchange tests of the source-meter driver: the exact messages it sends, and what it
 makes of the replies, against a scripted instrument (no network)."""
 import math
 
