@@ -23,8 +23,7 @@ OKABE_ITO = {
 SWEEP_COLOURS = (
     OKABE_ITO["blue"], OKABE_ITO["vermillion"], OKABE_ITO["bluish_green"],
     OKABE_ITO["reddish_purple"], OKABE_ITO["orange"], OKABE_ITO["sky_blue"],
-    OKABE_ITO["black"],
-)
+)  # black is kept for the fitted model curves, so no measured sweep is drawn in it
 
 # Earlier sweeps laid over the live ones: the same palette from the other end, drawn thin
 # and dotted without markers so that they never look like the sweep in progress.
